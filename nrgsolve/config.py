@@ -1,0 +1,423 @@
+"""Config files: TOML text -> validated, frozen :class:`RunSpec`.
+
+Every key nrgsolve understands is declared once, in :data:`SCHEMA`, with its
+type, default, unit, allowed range and a one-line meaning.  Unknown keys are
+errors with a "did you mean" suggestion; wrong types and out-of-range values
+are errors naming the key and the allowed range.  Nothing here does numerics.
+
+Conventions: energies and temperatures in units of the conduction
+half-bandwidth D (k_B = 1); ``exchange`` is the dimensionless ρJ with
+ρ = 1/(2D) and J > 0 antiferromagnetic; ``hybridization`` is Γ = πρV² at the
+Fermi level (Γ(ε) = Γ·g(ε) for a bath shape g); ``field`` is the Zeeman
+energy h on the impurity, H_field = −h S_z (h > 0 favours spin up).
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field, fields, replace
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import ConfigError
+
+__all__ = [
+    "SCHEMA", "RunSpec", "ImpuritySpec", "BathSpec", "DiscretizationSpec", "RunSettings",
+    "OutputSpec", "SweepSpec", "parse_config", "load_config", "config_reference_markdown",
+    "MODELS",
+]
+
+MODELS = ("kondo", "anderson", "resonant-level", "spin-kondo", "two-channel-kondo")
+BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
+SCHEMES = ("wilson", "adaptive")
+SYMMETRIES = ("su2", "abelian")
+
+
+@dataclass(frozen=True)
+class Key:
+    """Declaration of one config key."""
+
+    kind: type | tuple          # accepted python type(s) after TOML parsing
+    default: Any
+    unit: str
+    allowed: str                # human-readable allowed range
+    meaning: str
+    check: Callable[[Any], bool] | None = None
+    choices: tuple | None = None
+
+
+def _finite(x):
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+NUM = (int, float)
+# The one place where every default lives.
+SCHEMA: dict[str, dict[str, Key]] = {
+    "impurity": {
+        "model": Key(str, "kondo", "-", " | ".join(MODELS), "impurity model", choices=MODELS),
+        "exchange": Key(NUM, 0.15, "ρJ (dimensionless)", "finite; > 0 antiferromagnetic, < 0 ferromagnetic",
+                        "Kondo exchange coupling ρJ, ρ = 1/(2D)", _finite),
+        "exchange_second_channel": Key(NUM, None, "ρJ (dimensionless)", "finite (default: equal to exchange)",
+                                       "two-channel Kondo: exchange coupling to the second channel", _finite),
+        "potential_scattering": Key(NUM, 0.0, "ρK (dimensionless)", "finite",
+                                    "Kondo model: potential scattering ρK at the impurity site", _finite),
+        "spin": Key(NUM, 0.5, "ħ", "0.5, 1, 1.5, 2, ...", "spin-Kondo model: impurity spin S",
+                    lambda s: _finite(s) and s > 0 and abs(2 * s - round(2 * s)) < 1e-12 and s <= 4),
+        "level": Key(NUM, None, "D", "finite (default: −interaction/2, the symmetric point)",
+                     "Anderson model: level energy ε_d", _finite),
+        "interaction": Key(NUM, 0.1, "D", ">= 0 (must be 0 for resonant-level)",
+                           "Anderson model: on-site repulsion U", lambda u: _finite(u) and u >= 0),
+        "hybridization": Key(NUM, 0.01, "D", "> 0", "Anderson/resonant level: Γ = πρV² at the Fermi level",
+                             lambda g: _finite(g) and g > 0),
+        "field": Key(NUM, 0.0, "D", "finite (non-zero needs run.symmetry = \"abelian\")",
+                     "Zeeman energy h on the impurity, H = −h S_z", _finite),
+    },
+    "bath": {
+        "shape": Key(str, "flat", "-", " | ".join(BATH_SHAPES), "shape g(ε) of the hybridization function",
+                     choices=BATH_SHAPES),
+        "half_bandwidth": Key(NUM, 1.0, "D", "> 0", "half-bandwidth D of the conduction band",
+                              lambda d: _finite(d) and d > 0),
+        "exponent": Key(NUM, 0.0, "-", ">= 0", "power-law bath: g(ε) = |ε/D|^r, r = exponent",
+                        lambda r: _finite(r) and r >= 0),
+        "table": Key(str, None, "path", "readable two-column text file (ε, g(ε))",
+                     "table bath: file with ε (units of D) and g(ε) >= 0; relative to the config file"),
+    },
+    "discretization": {
+        "Lambda": Key(NUM, 2.0, "-", "> 1", "logarithmic discretization parameter Λ",
+                      lambda x: _finite(x) and x > 1),
+        "twists": Key(int, 1, "-", ">= 1", "number of evenly spaced twists z = k/n, k = 1..n (z-averaging)",
+                      lambda n: n >= 1),
+        "scheme": Key(str, "wilson", "-", " | ".join(SCHEMES), "discretization scheme", choices=SCHEMES),
+        "wilson_correction": Key(bool, False, "-", "true | false",
+                                 "Wilson scheme: multiply the coupling by A_Λ (Wilson 1975)"),
+    },
+    "run": {
+        "kept_states": Key(int, 1000, "states", ">= 1 (counting 2S+1)",
+                           "states kept per iteration, counting spin degeneracy", lambda n: n >= 1),
+        "energy_cutoff": Key(NUM, None, "ω_N", "> 0 (optional)",
+                             "keep every state below this energy (units of ω_N) instead of a fixed count",
+                             lambda e: _finite(e) and e > 0),
+        "lowest_temperature": Key(NUM, 1e-8, "D", "> 0 and < half_bandwidth",
+                                  "lowest temperature wanted; sets the chain length",
+                                  lambda t: _finite(t) and t > 0),
+        "beta_bar": Key(NUM, 0.75, "-", "> 0", "T_N = ω_N / beta_bar: temperature evaluated at iteration N",
+                        lambda b: _finite(b) and b > 0),
+        "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
+                        choices=SYMMETRIES),
+        "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",
+                       "parallel processes for the twists", lambda n: n >= 0),
+        "flow_levels": Key(int, 40, "levels", ">= 1", "lowest levels per iteration stored for the flow",
+                           lambda n: n >= 1),
+    },
+    "output": {
+        "file": Key(str, None, "path", "writable path ending in .h5 (default: <config name>.h5 in the current folder)",
+                    "HDF5 result file"),
+    },
+}
+
+SWEEP_NOTE = ("[sweep] maps a parameter name 'table.key' to a list of values, or to a table "
+              "{ start, stop, points, spacing = \"linear\" | \"log\" }; [sweep] folder names the output folder")
+
+
+@dataclass(frozen=True)
+class ImpuritySpec:
+    """Physics of the impurity (units of D; see module docstring)."""
+
+    model: str
+    exchange: float
+    exchange_second_channel: float | None
+    potential_scattering: float
+    spin: float
+    level: float | None
+    interaction: float
+    hybridization: float
+    field: float
+
+    @property
+    def U(self) -> float:
+        """Effective on-site repulsion (0 for the resonant level)."""
+        return 0.0 if self.model == "resonant-level" else self.interaction
+
+    @property
+    def epsilon_d(self) -> float:
+        """Effective level energy: ``level``, or −U/2 (the symmetric point) when not given."""
+        return -0.5 * self.U if self.level is None else self.level
+
+
+@dataclass(frozen=True)
+class BathSpec:
+    """Physics of the conduction band."""
+
+    shape: str
+    half_bandwidth: float
+    exponent: float
+    table: str | None
+
+
+@dataclass(frozen=True)
+class DiscretizationSpec:
+    """Numerical approximation: logarithmic discretization."""
+
+    Lambda: float
+    twists: int
+    scheme: str
+    wilson_correction: bool
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """Numerical approximation: truncation, chain length, thermodynamics grid."""
+
+    kept_states: int
+    energy_cutoff: float | None
+    lowest_temperature: float
+    beta_bar: float
+    symmetry: str
+    workers: int
+    flow_levels: int
+
+
+@dataclass(frozen=True)
+class OutputSpec:
+    file: str | None
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    """Parameter sweep: ordered parameter names and the value list of each (outer product)."""
+
+    parameters: tuple[str, ...] = ()
+    values: tuple[tuple, ...] = ()
+    folder: str | None = None
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """A validated, frozen run specification: the only thing the numerics see."""
+
+    impurity: ImpuritySpec
+    bath: BathSpec
+    discretization: DiscretizationSpec
+    run: RunSettings
+    output: OutputSpec
+    sweep: SweepSpec = field(default_factory=SweepSpec)
+    config_text: str = ""
+    config_path: str = ""
+
+    def with_value(self, dotted: str, value) -> "RunSpec":
+        """Return a copy with one parameter ``table.key`` replaced and re-validated."""
+        table, key = dotted.split(".", 1)
+        raw = self.as_dict()
+        raw[table][key] = value
+        return _build(raw, self.config_text, self.config_path, self.sweep, check_cross=True)
+
+    def as_dict(self) -> dict:
+        out = {}
+        for f in fields(self):
+            if f.name in SCHEMA:
+                sub = getattr(self, f.name)
+                out[f.name] = {g.name: getattr(sub, g.name) for g in fields(sub)}
+        return out
+
+
+def _suggest(word, options):
+    m = difflib.get_close_matches(word, list(options), n=1, cutoff=0.5)
+    return f" (did you mean '{m[0]}'?)" if m else ""
+
+
+def _type_name(kind):
+    if kind is NUM:
+        return "a number"
+    if kind is int:
+        return "an integer"
+    if kind is bool:
+        return "true or false"
+    return "a string"
+
+
+def _check_value(table, key, spec: Key, value):
+    name = f"{table}.{key}"
+    kind = spec.kind
+    ok_type = isinstance(value, kind) and not (isinstance(value, bool) and kind is not bool)
+    if kind is bool:
+        ok_type = isinstance(value, bool)
+    if not ok_type:
+        raise ConfigError(f"{name}: expected {_type_name(kind)}, got {type(value).__name__} {value!r}")
+    if spec.choices is not None and value not in spec.choices:
+        raise ConfigError(f"{name}: got {value!r}; allowed: {spec.allowed}{_suggest(str(value), spec.choices)}")
+    if spec.check is not None and not spec.check(value):
+        raise ConfigError(f"{name}: got {value!r}; allowed range: {spec.allowed}")
+    return float(value) if kind is NUM else value
+
+
+def parse_config(text: str, path: str = "<config>") -> RunSpec:
+    """Parse and validate config text.
+
+    Parameters
+    ----------
+    text : str
+        TOML text.
+    path : str
+        Name used in messages; table paths are resolved relative to its folder.
+
+    Returns
+    -------
+    RunSpec
+
+    Raises
+    ------
+    ConfigError
+        For malformed TOML, unknown tables or keys, wrong types, out-of-range values.
+    """
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    sweep_raw = raw.pop("sweep", None)
+    for table in raw:
+        if table not in SCHEMA:
+            raise ConfigError(f"unknown table [{table}]{_suggest(table, list(SCHEMA) + ['sweep'])}; "
+                              f"known tables: {', '.join(SCHEMA)}, sweep")
+        if not isinstance(raw[table], dict):
+            raise ConfigError(f"{table}: expected a table [{table}], got a {type(raw[table]).__name__}")
+    values = {}
+    for table, keys in SCHEMA.items():
+        given = raw.get(table, {})
+        for key in given:
+            if key not in keys:
+                raise ConfigError(f"unknown key {table}.{key}{_suggest(key, keys)}; "
+                                  f"known keys in [{table}]: {', '.join(keys)}")
+        values[table] = {}
+        for key, spec in keys.items():
+            if key in given:
+                values[table][key] = _check_value(table, key, spec, given[key])
+            else:
+                values[table][key] = spec.default
+    sweep = _parse_sweep(sweep_raw) if sweep_raw is not None else SweepSpec()
+    return _build(values, text, path, sweep, check_cross=True)
+
+
+def _parse_sweep(raw) -> SweepSpec:
+    if not isinstance(raw, dict):
+        raise ConfigError("sweep: expected a table [sweep]")
+    folder = raw.pop("folder", None)
+    if folder is not None and not isinstance(folder, str):
+        raise ConfigError("sweep.folder: expected a string path")
+    names, lists = [], []
+    for name, spec in raw.items():
+        if "." not in name:
+            raise ConfigError(f"sweep: parameter {name!r} must be written \"table.key\", e.g. \"impurity.exchange\"")
+        table, key = name.split(".", 1)
+        if table not in SCHEMA or key not in SCHEMA[table]:
+            known = [f"{t}.{k}" for t in SCHEMA for k in SCHEMA[t]]
+            raise ConfigError(f"sweep: unknown parameter {name!r}{_suggest(name, known)}")
+        if isinstance(spec, list):
+            vals = spec
+        elif isinstance(spec, dict):
+            extra = set(spec) - {"start", "stop", "points", "spacing"}
+            if extra:
+                raise ConfigError(f"sweep.{name}: unknown key {sorted(extra)[0]!r}; allowed: start, stop, points, spacing")
+            try:
+                start, stop, points = float(spec["start"]), float(spec["stop"]), int(spec["points"])
+            except (KeyError, TypeError, ValueError):
+                raise ConfigError(f"sweep.{name}: a range needs numbers start, stop and an integer points >= 1") from None
+            spacing = spec.get("spacing", "linear")
+            if points < 1 or spacing not in ("linear", "log"):
+                raise ConfigError(f"sweep.{name}: points must be >= 1 and spacing \"linear\" or \"log\"")
+            if spacing == "log":
+                if start <= 0 or stop <= 0:
+                    raise ConfigError(f"sweep.{name}: a log range needs start > 0 and stop > 0")
+                vals = [start * (stop / start) ** (i / max(points - 1, 1)) for i in range(points)]
+            else:
+                vals = [start + (stop - start) * i / max(points - 1, 1) for i in range(points)]
+        else:
+            raise ConfigError(f"sweep.{name}: expected a list of values or a range table")
+        if not vals:
+            raise ConfigError(f"sweep.{name}: empty list of values")
+        checked = tuple(_check_value(table, key, SCHEMA[table][key], v) for v in vals)
+        names.append(name)
+        lists.append(checked)
+    if not names:
+        raise ConfigError("sweep: name at least one parameter, e.g. \"impurity.exchange\" = [0.1, 0.2]")
+    return SweepSpec(tuple(names), tuple(lists), folder)
+
+
+def _build(values, text, path, sweep, check_cross) -> RunSpec:
+    imp = dict(values["impurity"])
+    spec = RunSpec(
+        impurity=ImpuritySpec(**imp),
+        bath=BathSpec(**values["bath"]),
+        discretization=DiscretizationSpec(**values["discretization"]),
+        run=RunSettings(**values["run"]),
+        output=OutputSpec(**values["output"]),
+        sweep=sweep,
+        config_text=text,
+        config_path=path,
+    )
+    if check_cross:
+        _cross_checks(spec)
+    return spec
+
+
+def _cross_checks(spec: RunSpec):
+    imp, bath, run = spec.impurity, spec.bath, spec.run
+    if imp.model == "resonant-level" and imp.interaction != 0.0 and "interaction" in _given(spec, "impurity"):
+        raise ConfigError(f"impurity.interaction: got {imp.interaction}; allowed range: 0 for model \"resonant-level\"")
+    if imp.field != 0.0 and run.symmetry == "su2":
+        raise ConfigError("impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = \"abelian\" only")
+    if bath.shape == "table" and not bath.table:
+        raise ConfigError("bath.table: shape \"table\" needs bath.table = \"path/to/file\"")
+    if bath.shape != "table" and bath.table:
+        raise ConfigError(f"bath.table: only allowed with bath.shape = \"table\" (got shape {bath.shape!r})")
+    if run.lowest_temperature >= bath.half_bandwidth:
+        raise ConfigError(f"run.lowest_temperature: got {run.lowest_temperature}; allowed range: > 0 and < half_bandwidth")
+    if spec.output.file is not None and not spec.output.file.endswith((".h5", ".hdf5")):
+        raise ConfigError(f"output.file: got {spec.output.file!r}; allowed: a path ending in .h5")
+
+
+def _given(spec, table):
+    try:
+        return tomllib.loads(spec.config_text).get(table, {})
+    except tomllib.TOMLDecodeError:
+        return {}
+
+
+def load_config(path: str | Path) -> RunSpec:
+    """Read and validate a config file (see :func:`parse_config`).
+
+    Raises
+    ------
+    ConfigError
+        If the file is missing or unreadable, or its content is invalid.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: cannot read config file ({exc.__class__.__name__}: {exc.strerror or exc})") from None
+    return parse_config(text, str(p))
+
+
+def resolve_table_path(spec: RunSpec) -> str | None:
+    """Table path relative to the config file's folder."""
+    if spec.bath.table is None:
+        return None
+    t = Path(spec.bath.table)
+    if not t.is_absolute() and spec.config_path and not spec.config_path.startswith("<"):
+        t = Path(spec.config_path).parent / t
+    return str(t)
+
+
+def config_reference_markdown() -> str:
+    """The config reference table (markdown), generated from :data:`SCHEMA`."""
+    lines = ["| key | meaning | unit | default | allowed |", "|---|---|---|---|---|"]
+    for table, keys in SCHEMA.items():
+        for key, k in keys.items():
+            default = "—" if k.default is None else repr(k.default).replace("'", '"')
+            if isinstance(k.default, bool):
+                default = str(k.default).lower()
+            lines.append(f"| `{table}.{key}` | {k.meaning} | {k.unit} | {default} | {k.allowed} |")
+    lines.append(f"| `sweep.*` | {SWEEP_NOTE} | | | |")
+    return "\n".join(lines)

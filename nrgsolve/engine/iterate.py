@@ -1,0 +1,313 @@
+"""Wilson's iterative diagonalization, resolved by symmetry (the kernel).
+
+At iteration N the Hamiltonian of the impurity and chain sites 0..N is held
+in units of the energy scale ω_N (see :func:`nrgsolve.chain` for its
+definition), measured from its ground state:
+
+.. math::
+
+    H_{N+1}/ω_{N+1} = \\sqrt{Λ}\\, H_N/ω_N
+        + \\sum_k \\frac{ε_{N+1,k}}{ω_{N+1}} n_{N+1,k}
+        + \\sum_{kσ} \\frac{t_{N,k}}{ω_{N+1}} (f^†_{Nkσ} f_{N+1,kσ} + \\mathrm{h.c.})
+
+(Wilson 1975; Krishna-murthy, Wilkins & Wilson 1980).  Each block of good
+quantum numbers is built from the kept states of the previous iteration with
+numpy block copies and diagonalized with LAPACK (scipy.linalg.eigh).  The
+kernel is a pure function of arrays: no files, no printing.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable, Sequence
+
+import numpy as np
+import scipy.linalg as sla
+
+from ..errors import NrgNumericalError, NrgInputError
+from .symmetry import BlockSet
+
+__all__ = ["EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain"]
+
+
+@dataclass(frozen=True)
+class EngineSettings:
+    """Numerical settings of the iteration.
+
+    Attributes
+    ----------
+    kept_states : int
+        States kept after each iteration, counting the 2S+1 components of a multiplet.
+    energy_cutoff : float or None
+        If given, keep every state below this energy (units of ω_N) instead.
+    beta_bar : float
+        T_N = ω_N/β̄; used here only for the discarded-weight estimate.
+    flow_levels : int
+        Number of lowest multiplets recorded for the flow diagram.
+    degeneracy_tol : float
+        Levels closer than this (units of ω_N) count as degenerate; the kept set
+        is never cut inside such a group.
+    driver : str
+        LAPACK driver for scipy.linalg.eigh ("evd", "evr", "ev").
+    """
+
+    kept_states: int
+    energy_cutoff: float | None = None
+    beta_bar: float = 0.75
+    flow_levels: int = 40
+    degeneracy_tol: float = 1e-6
+    driver: str = "evd"
+
+
+@dataclass(frozen=True)
+class Step:
+    """One site to add: its index n, on-site energies ε_n,k and the hopping from the previous orbital, per channel (units of D), and the new scale ω_n."""
+
+    index: int
+    onsite: tuple
+    hopping: tuple
+    scale: float
+
+
+@dataclass
+class IterationRecord:
+    """Everything later stages need from one iteration (all states, before truncation).
+
+    Energies are in units of ``scale`` (= ω_N, in D) measured from the ground
+    state, whose absolute energy (units of D) is ``ground_energy``.
+    Per-state arrays have one entry per block eigenstate (one per multiplet in su2 mode).
+    """
+
+    index: int
+    scale: float
+    ground_energy: float
+    energies: np.ndarray
+    multiplicity: np.ndarray
+    charge: np.ndarray
+    twice_spin: np.ndarray
+    spin_sq: np.ndarray
+    scalars: dict
+    kept_states: int
+    truncation_energy: float
+    discarded_weight: float
+    block_dims: np.ndarray
+    diag_seconds: float = 0.0
+
+
+@dataclass
+class EngineResult:
+    symmetry: str
+    records: list = field(default_factory=list)
+    diag_seconds: float = 0.0
+    total_seconds: float = 0.0
+
+
+def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool):
+    """Choose the kept number of states per block; returns (kept dict, E_trunc, kept count)."""
+    labels = list(energies_by_block)
+    allE = np.concatenate([energies_by_block[L] for L in labels])
+    mult = np.concatenate([np.full(len(energies_by_block[L]), sym.multiplicity(L)) for L in labels])
+    order = np.argsort(allE, kind="stable")
+    Es = allE[order]
+    cum = np.cumsum(mult[order])
+    total = int(cum[-1])
+    if settings.energy_cutoff is not None:
+        n_keep = int(np.searchsorted(Es, settings.energy_cutoff, side="right"))
+    else:
+        n_keep = int(np.searchsorted(cum, settings.kept_states, side="left")) + 1
+    n_keep = min(max(n_keep, 1), len(Es))
+    # never cut inside a degenerate group: widen to the next gap
+    while n_keep < len(Es) and Es[n_keep] - Es[n_keep - 1] < settings.degeneracy_tol:
+        n_keep += 1
+    if n_keep >= len(Es):
+        return {L: len(energies_by_block[L]) for L in labels}, float("inf"), total
+    ecut = 0.5 * (Es[n_keep - 1] + Es[n_keep])
+    if first and Es[n_keep - 1] - Es[0] < settings.degeneracy_tol:
+        raise NrgInputError(
+            f"run.kept_states: got {settings.kept_states}; too small to keep more than the ground "
+            f"multiplet after the first iteration (need at least {int(cum[n_keep]) + 1})")
+    kept = {L: int(np.count_nonzero(energies_by_block[L] < ecut)) for L in labels}
+    return kept, float(ecut), int(cum[n_keep - 1])
+
+
+def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settings, dims, dsec):
+    labels = list(energies)
+    E = np.concatenate([energies[L] for L in labels])
+    mult = np.concatenate([np.full(len(energies[L]), sym.multiplicity(L)) for L in labels])
+    charge = np.concatenate([np.full(len(energies[L]), sym.charge(L)) for L in labels])
+    tws = np.concatenate([np.full(len(energies[L]), sym.twice_spin(L)) for L in labels])
+    ssq = np.concatenate([np.full(len(energies[L]), sym.spin_square_over_three(L)) for L in labels])
+    sc = {name: np.concatenate([d[L] for L in labels]) for name, d in scalars_diag.items()}
+    order = np.argsort(E, kind="stable")
+    kept, ecut, nkept = kept_info
+    w = mult * np.exp(-settings.beta_bar * E)
+    disc = float(w[E > ecut].sum() / w.sum()) if np.isfinite(ecut) else 0.0
+    return IterationRecord(
+        index=index, scale=scale, ground_energy=ground, energies=E[order], multiplicity=mult[order],
+        charge=charge[order], twice_spin=tws[order], spin_sq=ssq[order],
+        scalars={k: v[order] for k, v in sc.items()}, kept_states=nkept, truncation_energy=ecut,
+        discarded_weight=disc, block_dims=np.asarray(sorted(dims, reverse=True), dtype=int), diag_seconds=dsec)
+
+
+def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, steps: Sequence[Step],
+              settings: EngineSettings, progress: Callable[[int], None] | None = None) -> EngineResult:
+    """Iterate the impurity block along the chain.
+
+    Parameters
+    ----------
+    initial : BlockSet
+        The initial block (from ``sym.from_explicit``), energies in units of D.
+    initial_index : int
+        Chain index N of the initial block (−1 if it holds no chain site).
+    initial_scale : float
+        ω of the initial block (units of D).
+    sym : Su2Symmetry or AbelianSymmetry
+    steps : sequence of Step
+        The sites to add, in order.
+    settings : EngineSettings
+    progress : callable, optional
+        Called with the iteration index after each iteration.
+
+    Returns
+    -------
+    EngineResult
+        One :class:`IterationRecord` per iteration with index N ≥ 0 (and the
+        initial block if its index is ≥ 0).
+
+    Raises
+    ------
+    NrgNumericalError
+        Non-finite chain coefficients or eigenvalues.
+    NrgInputError
+        kept_states too small for a sensible first truncation.
+    """
+    t_start = time.perf_counter()
+    for st in steps:
+        if not (np.all(np.isfinite(st.onsite)) and np.all(np.isfinite(st.hopping)) and np.isfinite(st.scale)):
+            raise NrgNumericalError(f"chain site {st.index}: non-finite on-site energy or hopping")
+    result = EngineResult(symmetry=sym.name)
+    # initial block in units of its scale, measured from its ground state
+    e0 = min(float(e.min()) for e in initial.energies.values())
+    energies = {L: (e - e0) / initial_scale for L, e in initial.energies.items()}
+    ground = e0
+    F = initial.F
+    scalars = initial.scalars
+    kept_info = _truncate(energies, sym, settings, first=True)
+    if initial_index >= 0:
+        sd = {name: {L: np.diag(m) for L, m in d.items()} for name, d in scalars.items()}
+        result.records.append(_record(initial_index, initial_scale, ground, energies, sym, kept_info, sd,
+                                      settings, [len(e) for e in energies.values()], 0.0))
+    kept = kept_info[0]
+    # vectors of the previous iteration are implicit: F and scalars are already in the kept basis
+    F = {c: {k: v[:kept[k[0]], :kept[k[1]]] for k, v in Fc.items()} for c, Fc in F.items()}
+    scalars = {n: {L: m[:kept[L], :kept[L]] for L, m in d.items()} for n, d in scalars.items()}
+    prev_scale = initial_scale
+    first = initial_index < 0
+    site = sym.site
+    n_site = [np.array([s.label[k] + 1 for k in range(sym.n_channels)], dtype=float) for s in site]
+    for st in steps:
+        ratio = prev_scale / st.scale
+        eps = np.asarray(st.onsite, dtype=float) / st.scale
+        hop = np.asarray(st.hopping, dtype=float) / st.scale
+        # layout of every new block: sub-blocks (old label, site multiplet)
+        layout: dict = {}
+        for L, nk in kept.items():
+            if nk == 0:
+                continue
+            for a, s in enumerate(site):
+                for Ln in sym.combine(L, s.label):
+                    layout.setdefault(Ln, []).append((L, a))
+        new_E, new_U, offsets, dims = {}, {}, {}, []
+        dsec = 0.0
+        for Ln, subs in layout.items():
+            offs, pos = {}, 0
+            for (L, a) in subs:
+                offs[(L, a)] = (pos, kept[L])
+                pos += kept[L]
+            offsets[Ln] = offs
+            H = np.zeros((pos, pos))
+            diag = np.concatenate([ratio * energies[L][:kept[L]] + float(eps @ n_site[a]) for (L, a) in subs])
+            for (Lo, b) in subs:
+                ro, no = offs[(Lo, b)]
+                for (Li, a) in subs:
+                    if site[b].n_fermions != site[a].n_fermions - 1:
+                        continue
+                    ri, ni = offs[(Li, a)]
+                    for comp in sym.components:
+                        M = F[comp].get((Lo, Li))
+                        if M is None:
+                            continue
+                        c = sym.hop_coef(comp, Li, a, Lo, b, Ln)
+                        if c != 0.0:
+                            k = comp[0] if isinstance(comp, tuple) else comp
+                            H[ro:ro + no, ri:ri + ni] += (hop[k] * c) * M
+            H += H.T
+            H[np.diag_indices(pos)] += diag
+            t0 = time.perf_counter()
+            e, U = sla.eigh(H, driver=settings.driver, overwrite_a=True, check_finite=False)
+            dsec += time.perf_counter() - t0
+            if not np.all(np.isfinite(e)):
+                raise NrgNumericalError(f"iteration {st.index}: non-finite eigenvalues in block {Ln}")
+            new_E[Ln], new_U[Ln] = e, U
+            dims.append(pos)
+        e0 = min(float(e.min()) for e in new_E.values())
+        for Ln in new_E:
+            new_E[Ln] = new_E[Ln] - e0
+        ground = ground + st.scale * e0 if not first else ground + st.scale * e0
+        first_trunc = first
+        kinfo = _truncate(new_E, sym, settings, first=first_trunc)
+        first = False
+        new_kept = kinfo[0]
+        # scalar operators: thermal diagonals over all states, kept matrices for the next step
+        sdiag, new_scalars = {}, {}
+        for name, d in scalars.items():
+            sdiag[name], new_scalars[name] = {}, {}
+            for Ln, subs in layout.items():
+                U = new_U[Ln]
+                OU = np.zeros_like(U)
+                for (L, a) in subs:
+                    r, n = offsets[Ln][(L, a)]
+                    OU[r:r + n] = d[L] @ U[r:r + n]
+                sdiag[name][Ln] = np.einsum("ij,ij->j", U, OU)
+                k = new_kept[Ln]
+                new_scalars[name][Ln] = U[:, :k].T @ OU[:, :k]
+        result.records.append(_record(st.index, st.scale, ground, new_E, sym, kinfo, sdiag, settings, dims, dsec))
+        result.diag_seconds += dsec
+        # creation operator of the new last site, in the kept basis
+        new_F = {}
+        for comp in sym.components:
+            Fc = {}
+            for Li, subs in layout.items():
+                ki = new_kept[Li]
+                if ki == 0:
+                    continue
+                targets = set(sym.f_targets(comp, Li))
+                X = {}
+                for (L, a) in subs:
+                    ri, ni = offsets[Li][(L, a)]
+                    for b, s in enumerate(site):
+                        if s.n_fermions != site[a].n_fermions + 1:
+                            continue
+                        for Lo in sym.combine(L, s.label):
+                            if Lo not in targets or new_kept.get(Lo, 0) == 0 or (L, b) not in offsets[Lo]:
+                                continue
+                            c = sym.site_coef(comp, L, a, Li, b, Lo)
+                            if c == 0.0:
+                                continue
+                            if Lo not in X:
+                                X[Lo] = np.zeros((new_U[Lo].shape[0], ki))
+                            ro, no = offsets[Lo][(L, b)]
+                            X[Lo][ro:ro + no] += c * new_U[Li][ri:ri + ni, :ki]
+                for Lo, Xm in X.items():
+                    Fc[(Lo, Li)] = new_U[Lo][:, :new_kept[Lo]].T @ Xm
+            new_F[comp] = Fc
+        F = new_F
+        scalars = new_scalars
+        energies = new_E
+        kept = new_kept
+        prev_scale = st.scale
+        if progress is not None:
+            progress(st.index)
+    result.total_seconds = time.perf_counter() - t_start
+    return result

@@ -1,0 +1,92 @@
+"""The Kondo temperature (two definitions) and the Wilson ratio from z-averaged curves.
+
+* Wilson's definition (Wilson 1975): χ_imp(T → 0) = w/(4 T_K), w = 0.4128,
+  so T_K = w / (4 χ_imp(0)) with χ_imp(0) = lim T·χ_imp/T.
+* Crossover definition (Krishna-murthy, Wilkins & Wilson 1980):
+  T_K · χ_imp(T_K) = 0.07, the temperature where T·χ_imp falls through 0.07.
+* Wilson ratio R = (4π²/3) χ_imp(0)/γ_imp with γ_imp = lim C_imp/T
+  (R = 2 in the Kondo limit, R = 1 for U = 0; Wilson 1975, Yamada 1975).
+
+A limit T → 0 counts as *reached* only if the run went far enough below the
+crossover: T·χ_imp at the lowest temperature is below ``LOW_TCHI`` and
+T·χ_imp/T varies by less than ``FLAT_TOL`` over the lowest
+``FLAT_DECADES`` decades.  Otherwise the value is reported as not reached
+(``None``), e.g. for a ferromagnetic coupling or a free spin.
+Units: temperatures in D; χ in (g μ_B)²/k_B.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["KondoSummary", "kondo_summary", "WILSON_NUMBER", "CROSSOVER_VALUE"]
+
+WILSON_NUMBER = 0.4128
+CROSSOVER_VALUE = 0.07
+LOW_TCHI = 0.01
+FLAT_TOL = 0.02
+FLAT_DECADES = 1.0
+
+
+@dataclass(frozen=True)
+class KondoSummary:
+    """Summary of one run (None = not reached).  Temperatures in D."""
+
+    kondo_temperature_wilson: float | None
+    kondo_temperature_crossover: float | None
+    wilson_ratio: float | None
+    chi_zero: float | None
+    gamma_zero: float | None
+    lowest_temperature_reached: float
+
+
+def _low_t_limit(T, y, decades=FLAT_DECADES, tol=FLAT_TOL):
+    """lim_{T→0} y(T) from the lowest ``decades`` of the grid, or None if y is not flat there."""
+    sel = T <= T[0] * 10 ** decades
+    if sel.sum() < 3:
+        return None
+    vals = y[sel]
+    ref = vals[0]
+    if ref == 0 or not np.all(np.isfinite(vals)):
+        return None
+    if np.max(np.abs(vals / ref - 1.0)) > tol:
+        return None
+    return float(ref)
+
+
+def kondo_summary(temperature, T_chi, heat) -> KondoSummary:
+    """Kondo temperatures and Wilson ratio from impurity curves.
+
+    Parameters
+    ----------
+    temperature : ndarray (M,)
+        Ascending temperatures (units of D).
+    T_chi : ndarray (M,)
+        T·χ_imp in (g μ_B)²/k_B.
+    heat : ndarray (M,)
+        C_imp in k_B.
+
+    Returns
+    -------
+    KondoSummary
+    """
+    T = np.asarray(temperature, float)
+    tc = np.asarray(T_chi, float)
+    C = np.asarray(heat, float)
+    screened = tc[0] < LOW_TCHI
+    chi0 = _low_t_limit(T, tc / T) if screened else None
+    gamma0 = _low_t_limit(T, C / T, tol=3 * FLAT_TOL) if screened else None
+    tk_w = WILSON_NUMBER / (4.0 * chi0) if chi0 else None
+    tk_c = None
+    # coming down from high T: last crossing of 0.07 from above
+    below = tc < CROSSOVER_VALUE
+    if below[0] and not below.all():
+        i = int(np.nonzero(~below)[0][0])   # first point (from low T) at or above the value
+        t0, t1 = math.log(T[i - 1]), math.log(T[i])
+        y0, y1 = tc[i - 1], tc[i]
+        tk_c = float(math.exp(t0 + (CROSSOVER_VALUE - y0) * (t1 - t0) / (y1 - y0)))
+    ratio = (4 * math.pi ** 2 / 3) * chi0 / gamma0 if (chi0 and gamma0 and gamma0 > 0) else None
+    return KondoSummary(tk_w, tk_c, ratio, chi0, gamma0, float(T[0]))
