@@ -50,6 +50,12 @@ class EngineSettings:
         is never cut inside such a group.
     driver : str
         LAPACK driver for scipy.linalg.eigh ("evd", "evr", "ev").
+    particle_hole_symmetric : bool
+        Protect particle-hole symmetry: the spectra of the blocks Q and −Q
+        (same spin) are replaced by their mean after every diagonalization.
+        Roundoff offsets between charge sectors grow like Λ^{N/2} in units of
+        ω_N and would otherwise split the symmetric ground multiplet of long
+        odd chains.
     """
 
     kept_states: int
@@ -58,6 +64,7 @@ class EngineSettings:
     flow_levels: int = 40
     degeneracy_tol: float = 1e-6
     driver: str = "evd"
+    particle_hole_symmetric: bool = False
 
 
 @dataclass(frozen=True)
@@ -148,6 +155,16 @@ def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settin
         charge=charge[order], twice_spin=tws[order], spin_sq=ssq[order],
         scalars={k: v[order] for k, v in sc.items()}, kept_states=nkept, truncation_energy=ecut,
         discarded_weight=disc, block_dims=np.asarray(sorted(dims, reverse=True), dtype=int), diag_seconds=dsec)
+
+
+def _symmetrize_charge(energies):
+    """Average the spectra of mirror blocks (Q, X) and (−Q, X) in place."""
+    for L in list(energies):
+        M = tuple(-q for q in L[:-1]) + (L[-1],)
+        if M != L and M in energies and L < M and len(energies[M]) == len(energies[L]):
+            avg = 0.5 * (energies[L] + energies[M])
+            energies[L] = avg
+            energies[M] = avg.copy()
 
 
 def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, steps: Sequence[Step],
@@ -251,10 +268,12 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
                 raise NrgNumericalError(f"iteration {st.index}: non-finite eigenvalues in block {Ln}")
             new_E[Ln], new_U[Ln] = e, U
             dims.append(pos)
+        if settings.particle_hole_symmetric:
+            _symmetrize_charge(new_E)
         e0 = min(float(e.min()) for e in new_E.values())
         for Ln in new_E:
             new_E[Ln] = new_E[Ln] - e0
-        ground = ground + st.scale * e0 if not first else ground + st.scale * e0
+        ground = ground + st.scale * e0
         first_trunc = first
         kinfo = _truncate(new_E, sym, settings, first=first_trunc)
         first = False

@@ -1,0 +1,111 @@
+"""The ``nrgsolve`` command line: parses, calls and reports; no physics here.
+
+Commands: ``run``, ``sweep``, ``plot``, ``inspect``.  Every input error
+(bad config, bad file, bad range, existing output) is one line on stderr and
+exit code 2; nothing is written.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from .errors import NrgInputError, NrgNumericalError
+
+__all__ = ["main"]
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):
+        self.exit(2, f"nrgsolve: error: {message}\n")
+
+
+def _fail(msg: str) -> int:
+    print(f"nrgsolve: error: {msg}", file=sys.stderr)
+    return 2
+
+
+def _progress_bar(total, quiet, desc):
+    from tqdm import tqdm
+    disable = quiet or not sys.stderr.isatty()
+    return tqdm(total=total, desc=desc, unit="it", disable=disable, leave=False)
+
+
+def _output_path(spec, override):
+    if override:
+        return Path(override)
+    if spec.output.file:
+        return Path(spec.output.file)
+    return Path.cwd() / (Path(spec.config_path).stem + ".h5")
+
+
+def _fmt(v, unit=""):
+    return "not reached" if v is None else f"{v:.5g}{unit}"
+
+
+def cmd_run(args) -> int:
+    from .config import load_config
+    from .solve import solve, n_iterations, bath_from_spec
+    from .store import write_result, check_output_path
+
+    spec = load_config(args.config)
+    out = _output_path(spec, args.output)
+    if not str(out).endswith((".h5", ".hdf5")):
+        raise NrgInputError(f"--output: got {str(out)!r}; allowed: a path ending in .h5")
+    check_output_path(out, args.force)
+    bath = bath_from_spec(spec)
+    total = n_iterations(spec, bath)
+    with _progress_bar(total, args.quiet, f"{spec.impurity.model} ({spec.discretization.twists} twist(s))") as bar:
+        result = solve(spec, progress=bar.update)
+    path = write_result(result, out, force=args.force)
+    if not args.quiet:
+        s = result.summary
+        print(f"model {spec.impurity.model}, Λ = {spec.discretization.Lambda:g}, "
+              f"{spec.discretization.twists} twist(s), kept states {spec.run.kept_states}, symmetry {spec.run.symmetry}")
+        print(f"Kondo temperature (Wilson, χ(0) = 0.4128/4T_K): {_fmt(s.kondo_temperature_wilson, ' D')}")
+        print(f"Kondo temperature (crossover, T_K χ(T_K) = 0.07): {_fmt(s.kondo_temperature_crossover, ' D')}")
+        print(f"Wilson ratio: {_fmt(s.wilson_ratio)}")
+        print(f"lowest temperature reached: {s.lowest_temperature_reached:.3g} D")
+        print(f"wall time: {result.wall_seconds:.1f} s")
+        for w in result.warnings:
+            print(f"warning: {w}")
+        print(f"wrote {path}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="nrgsolve", description="Numerical renormalization group solver for quantum impurity models.")
+    from . import __version__
+    p.add_argument("--version", action="version", version=f"nrgsolve {__version__}")
+    sub = p.add_subparsers(dest="command", parser_class=_Parser)
+    sub.required = True
+    r = sub.add_parser("run", help="run one config (all twists) and write an HDF5 result file")
+    r.add_argument("config", help="TOML config file")
+    r.add_argument("--output", "-o", help="result file (default: [output] file, or <config name>.h5 here)")
+    r.add_argument("--force", action="store_true", help="overwrite an existing result file")
+    r.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
+    r.set_defaults(func=cmd_run)
+    try:
+        from . import cli_extra
+        cli_extra.add_commands(sub)
+    except ImportError:
+        pass
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except NrgInputError as exc:
+        return _fail(str(exc))
+    except NrgNumericalError as exc:
+        return _fail(f"numerical problem: {exc}")
+    except KeyboardInterrupt:
+        return _fail("interrupted; no output written")
+
+
+if __name__ == "__main__":
+    sys.exit(main())

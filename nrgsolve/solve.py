@@ -1,0 +1,257 @@
+"""The driver: a validated RunSpec in, a RunResult out (chains, flow, thermodynamics, Kondo scale).
+
+This is the thin layer between the numerics and the user's side (PySCF's
+kernel/driver split): it builds the bath and one chain per twist, sets up the
+impurity model, runs the engine kernel for each twist (in parallel
+processes), computes the observables and averages over the twists.
+It knows nothing about files or plots.
+
+Energy scale of iteration N for twist z (units of D):
+ω_N(z) = D (1 + 1/Λ)/2 · Λ^{−(N−1)/2} · Λ^{1−z},
+so that the last hopping in units of ω_N tends to 1 for the flat band and
+the temperatures T_N = ω_N/β̄ of different twists interleave.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .config import RunSpec, resolve_table_path
+from .errors import NrgInputError
+from .bath import make_bath, read_table
+from .discretize import twists as twist_values
+from .chain import build_chain
+from .engine import make_symmetry, run_chain, EngineSettings
+from .engine.iterate import Step
+from .models import kondo_block, two_channel_kondo_block, anderson_block
+from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
+                          ThermoCurve, KondoSummary, FlowSpectrum)
+
+__all__ = ["TwistResult", "RunResult", "energy_scale", "sites_needed", "solve_twist", "solve",
+           "bath_from_spec", "is_particle_hole_symmetric"]
+
+
+@dataclass(frozen=True)
+class TwistResult:
+    """Results of one twist z: its chain (units of D), flow spectrum and impurity thermodynamics."""
+
+    z: float
+    onsite: np.ndarray
+    hopping: np.ndarray
+    coupling_sq: float
+    flow: FlowSpectrum
+    thermo: ThermoCurve
+    diag_seconds: float
+    total_seconds: float
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """A whole run: per-twist results, z-averaged thermodynamics and the summary."""
+
+    spec: RunSpec
+    twists: list
+    thermo: ThermoCurve
+    summary: KondoSummary
+    wall_seconds: float
+    warnings: list = field(default_factory=list)
+
+
+def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0) -> float:
+    """ω_N(z) = D (1+1/Λ)/2 · Λ^{−(N−1)/2} · Λ^{1−z} (units of D)."""
+    return half_bandwidth * 0.5 * (1 + 1 / Lambda) * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
+
+
+def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
+                 half_bandwidth: float = 1.0) -> int:
+    """Chain sites 0..N with N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature."""
+    w0 = energy_scale(1, Lambda, z, half_bandwidth) / beta_bar
+    N = max(1, 1 + math.ceil(2 * math.log(w0 / lowest_temperature) / math.log(Lambda) - 1e-9))
+    return N + 1
+
+
+def bath_from_spec(spec: RunSpec):
+    """The Bath object of a spec (reads the table file if there is one)."""
+    b = spec.bath
+    if b.shape == "table":
+        return read_table(resolve_table_path(spec))
+    return make_bath(b.shape, half_bandwidth=b.half_bandwidth, exponent=b.exponent)
+
+
+def is_particle_hole_symmetric(spec: RunSpec, bath) -> bool:
+    """True when the model is particle-hole symmetric (symmetric bath, ε_d = −U/2 or K = 0, no field)."""
+    imp = spec.impurity
+    if not bath.is_particle_hole_symmetric() or imp.field != 0.0:
+        return False
+    if imp.model in ("anderson", "resonant-level"):
+        return abs(imp.epsilon_d + 0.5 * imp.U) < 1e-15
+    return imp.potential_scattering == 0.0
+
+
+def _model_block(spec: RunSpec, chain, bath):
+    imp = spec.impurity
+    D = bath.half_bandwidth
+    plain = bath.integral(-D, D) / math.pi          # (1/π)∫ g dε without correction
+    corr = chain.coupling_sq / plain                # A_Λ when the Wilson correction is on, else 1
+    rho = 1.0 / (2.0 * D)
+    if imp.model in ("kondo", "spin-kondo"):
+        twice = 1 if imp.model == "kondo" else int(round(2 * imp.spin))
+        blk = kondo_block(imp.exchange / rho * corr, imp.potential_scattering / rho * corr, twice, imp.field,
+                          float(chain.onsite[0]))
+        return blk, 1
+    if imp.model == "two-channel-kondo":
+        j2 = imp.exchange if imp.exchange_second_channel is None else imp.exchange_second_channel
+        blk = two_channel_kondo_block(imp.exchange / rho * corr, j2 / rho * corr, 1, imp.field,
+                                      float(chain.onsite[0]))
+        return blk, 2
+    v0 = math.sqrt(imp.hybridization * chain.coupling_sq)
+    return anderson_block(imp.epsilon_d, imp.U, v0, imp.field), 1
+
+
+def solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResult:
+    """Run the engine and the observables for one twist z.
+
+    Parameters
+    ----------
+    spec : RunSpec
+    z : float
+        Twist in (0, 1].
+    progress : callable, optional
+        Called with the iteration index after each iteration.
+    bath : Bath, optional
+        Pre-built bath (default: from the spec).
+    """
+    t0 = time.perf_counter()
+    bath = bath_from_spec(spec) if bath is None else bath
+    d, r = spec.discretization, spec.run
+    D = bath.half_bandwidth
+    n_sites = sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, D)
+    chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme, wilson_correction=d.wilson_correction)
+    block, n_channels = _model_block(spec, chain, bath)
+    sym = make_symmetry(r.symmetry, n_channels)
+    initial = sym.from_explicit(block)
+    first = block.first_site
+    steps = []
+    for n in range(first, n_sites):
+        if n == 0:
+            hop = tuple(block.first_hopping[k] for k in range(n_channels))
+        else:
+            hop = (float(chain.hopping[n - 1]),) * n_channels
+        steps.append(Step(n, (float(chain.onsite[n]),) * n_channels, hop, energy_scale(n, d.Lambda, z, D)))
+    settings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
+                              flow_levels=r.flow_levels,
+                              particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
+    res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D), sym, steps, settings, progress)
+    thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
+                                     abelian=(r.symmetry == "abelian"), n_channels=n_channels)
+    flow = flow_spectrum(res.records, r.flow_levels)
+    return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),
+                       coupling_sq=float(chain.coupling_sq), flow=flow, thermo=thermo,
+                       diag_seconds=res.diag_seconds, total_seconds=time.perf_counter() - t0)
+
+
+def _worker_init():
+    # one BLAS thread per worker process: the twists themselves are the parallelism
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ[var] = "1"
+
+
+def _solve_twist_queued(spec, z, queue):
+    cb = (lambda n: queue.put(1)) if queue is not None else None
+    return solve_twist(spec, z, cb)
+
+
+def n_iterations(spec: RunSpec, bath=None) -> int:
+    """Total iterations of a run over all twists (for progress bars)."""
+    bath = bath_from_spec(spec) if bath is None else bath
+    d, r = spec.discretization, spec.run
+    first = 0 if spec.impurity.model in ("anderson", "resonant-level") else 1
+    return sum(sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, bath.half_bandwidth) - first
+               for z in twist_values(d.twists))
+
+
+def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult:
+    """Run every twist (in parallel processes when workers > 1) and average.
+
+    Parameters
+    ----------
+    spec : RunSpec
+    progress : callable, optional
+        Called with the number of iterations just finished (for a progress bar).
+    workers : int, optional
+        Parallel processes (default: spec.run.workers; 0 means one per twist, at most the CPU count).
+
+    Returns
+    -------
+    RunResult
+    """
+    t0 = time.perf_counter()
+    bath = bath_from_spec(spec)   # validates the table before any process starts
+    zs = [float(z) for z in twist_values(spec.discretization.twists)]
+    if workers is None:
+        workers = spec.run.workers
+    if workers == 0:
+        workers = min(len(zs), os.cpu_count() or 1)
+    workers = max(1, min(workers, len(zs)))
+    if workers == 1:
+        cb = (lambda n: progress(1)) if progress is not None else None
+        results = [solve_twist(spec, z, cb, bath) for z in zs]
+    else:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+        ctx = mp.get_context("spawn")
+        saved = {v: os.environ.get(v) for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
+        _worker_init()
+        try:
+            with ctx.Manager() as manager:
+                queue = manager.Queue() if progress is not None else None
+                with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init) as pool:
+                    futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
+                    while not all(f.done() for f in futs):
+                        _drain(queue, progress, timeout=0.2)
+                    _drain(queue, progress, timeout=0.0)
+                    results = [f.result() for f in futs]
+        finally:
+            for v, old in saved.items():
+                if old is None:
+                    os.environ.pop(v, None)
+                else:
+                    os.environ[v] = old
+    thermo = average_twists([t.thermo for t in results])
+    summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
+    warnings = _warnings(spec, results, thermo, summary)
+    return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
+                     wall_seconds=time.perf_counter() - t0, warnings=warnings)
+
+
+def _drain(queue, progress, timeout):
+    if queue is None:
+        time.sleep(timeout)
+        return
+    import queue as _q
+    try:
+        n = queue.get(timeout=timeout) if timeout else queue.get_nowait()
+        progress(n)
+        while True:
+            progress(queue.get_nowait())
+    except _q.Empty:
+        pass
+
+
+def _warnings(spec, results, thermo, summary) -> list:
+    out = []
+    worst = max(float(np.max(t.flow.discarded_weight)) for t in results)
+    if worst > 1e-3:
+        out.append(f"truncation may be too aggressive: discarded thermal weight up to {worst:.1e} "
+                   f"(increase run.kept_states or run.beta_bar)")
+    low = float(thermo.temperature[0])
+    if low > 1.5 * spec.run.lowest_temperature:
+        out.append(f"lowest temperature reached {low:.3g} D is above the requested {spec.run.lowest_temperature:.3g} D")
+    if summary.kondo_temperature_crossover is None and spec.impurity.model != "two-channel-kondo":
+        out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low enough)")
+    return out

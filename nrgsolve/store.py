@@ -1,0 +1,254 @@
+"""HDF5 result files: one file per run, written atomically.
+
+Layout (units in each dataset's ``units`` attribute; see docs/results.md):
+
+* root attributes: ``format_version``, ``nrgsolve_version``, ``config_text``,
+  ``created_utc``, ``python_version``, ``numpy_version``, ``scipy_version``,
+  ``h5py_version``, ``git_commit`` (when known), ``symmetry``, ``model``.
+* ``/chain/z`` (twists), ``/chain/onsite``, ``/chain/hopping`` (twists × sites,
+  NaN-padded), ``/chain/coupling_sq`` (twists).
+* ``/flow/iteration``, ``/flow/energy`` (iterations × levels, units of ω_N),
+  ``/flow/charge``, ``/flow/twice_spin``, ``/flow/degeneracy`` — of the twist z = 1.
+* ``/diagnostics/iteration``, ``/diagnostics/kept_states``,
+  ``/diagnostics/truncation_energy``, ``/diagnostics/discarded_weight``,
+  ``/diagnostics/block_dimensions`` — of the twist z = 1.
+* ``/thermodynamics/temperature`` (ascending, D), ``T_chi_imp``, ``S_imp``,
+  ``C_imp`` and impurity averages (``occupation``, ``double_occupancy``,
+  ``impurity_sz``, ...) — z-averaged.
+* ``/twists/<k>/`` with attribute ``z``: ``flow/``, ``diagnostics/`` and
+  ``thermodynamics/`` of every twist.
+* ``/summary`` attributes: ``kondo_temperature_wilson``,
+  ``kondo_temperature_crossover``, ``wilson_ratio``,
+  ``lowest_temperature_reached`` (NaN means "not reached"), ``wall_seconds``,
+  ``warnings``.
+
+The file is written to a temporary name in the target folder and renamed, so
+an interrupted run never leaves a half-written file.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import subprocess
+import sys
+import tempfile
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from .errors import NrgInputError
+
+__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path"]
+
+FORMAT_VERSION = 1
+
+THERMO_NAMES = {"T_chi": ("T_chi_imp", "(g mu_B)^2/k_B"), "entropy": ("S_imp", "k_B"), "heat": ("C_imp", "k_B")}
+EXTRA_UNITS = {"occupation": "electrons", "double_occupancy": "1", "impurity_sz": "hbar",
+               "total_sz": "hbar", "spin_correlation": "hbar^2"}
+
+
+def _version():
+    try:
+        from importlib.metadata import version
+        return version("nrgsolve")
+    except Exception:
+        from . import __version__
+        return __version__
+
+
+def _git_commit():
+    try:
+        here = Path(__file__).resolve().parent
+        out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=here, capture_output=True, text=True, timeout=5)
+        return out.stdout.strip() if out.returncode == 0 else ""
+    except (OSError, subprocess.SubprocessError):
+        return ""
+
+
+def check_output_path(path: str | Path, force: bool) -> Path:
+    """Refuse an existing output file unless ``force``; create the folder.
+
+    Raises
+    ------
+    NrgInputError
+        If the file exists and ``force`` is False, or the path is a folder.
+    """
+    p = Path(path)
+    if p.is_dir():
+        raise NrgInputError(f"output: {p} is a folder; give a file name ending in .h5")
+    if p.exists() and not force:
+        raise NrgInputError(f"output: {p} already exists; use --force to overwrite or choose another --output")
+    try:
+        p.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise NrgInputError(f"output: cannot create folder {p.parent} ({exc.strerror})") from None
+    return p
+
+
+class atomic_path:
+    """Context manager: yields a temporary path beside ``target``; renames it on success, removes it on failure."""
+
+    def __init__(self, target):
+        self.target = Path(target)
+
+    def __enter__(self):
+        fd, tmp = tempfile.mkstemp(prefix=f".{self.target.name}.", suffix=".part", dir=self.target.parent)
+        os.close(fd)
+        self.tmp = Path(tmp)
+        return self.tmp
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is None:
+            os.replace(self.tmp, self.target)
+        else:
+            self.tmp.unlink(missing_ok=True)
+        return False
+
+
+def _ds(group, name, data, units):
+    d = group.create_dataset(name, data=np.asarray(data))
+    d.attrs["units"] = units
+    return d
+
+
+def _pad(rows, fill=np.nan):
+    n = max(len(r) for r in rows)
+    out = np.full((len(rows), n), fill, dtype=float)
+    for i, r in enumerate(rows):
+        out[i, :len(r)] = r
+    return out
+
+
+def _write_flow(g, flow):
+    f = g.create_group("flow")
+    _ds(f, "iteration", flow.iteration, "1")
+    _ds(f, "energy", flow.energy, "omega_N")
+    _ds(f, "charge", flow.charge, "electrons from half filling")
+    _ds(f, "twice_spin", flow.twice_spin, "2S (su2) or 2S_z (abelian)")
+    _ds(f, "degeneracy", flow.degeneracy, "states")
+    d = g.create_group("diagnostics")
+    _ds(d, "iteration", flow.iteration, "1")
+    _ds(d, "kept_states", flow.kept_states, "states")
+    _ds(d, "truncation_energy", flow.truncation_energy, "omega_N")
+    _ds(d, "discarded_weight", flow.discarded_weight, "1")
+    _ds(d, "block_dimensions", flow.block_dimensions, "states")
+
+
+def _write_thermo(g, curve):
+    t = g.create_group("thermodynamics")
+    _ds(t, "temperature", curve.temperature, "D")
+    for attr, (name, units) in THERMO_NAMES.items():
+        _ds(t, name, getattr(curve, attr), units)
+    for name, values in curve.extra.items():
+        _ds(t, name, values, EXTRA_UNITS.get(name, "1"))
+
+
+def write_result(result, path: str | Path, force: bool = False) -> Path:
+    """Write a :class:`~nrgsolve.solve.RunResult` to ``path`` atomically.
+
+    Raises
+    ------
+    NrgInputError
+        If the file exists and ``force`` is False.
+    """
+    import h5py
+    import scipy
+
+    target = check_output_path(path, force)
+    spec = result.spec
+    with atomic_path(target) as tmp:
+        with h5py.File(tmp, "w") as h:
+            a = h.attrs
+            a["format_version"] = FORMAT_VERSION
+            a["nrgsolve_version"] = _version()
+            a["config_text"] = spec.config_text
+            a["config_path"] = spec.config_path
+            a["created_utc"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
+            a["python_version"] = platform.python_version()
+            a["numpy_version"] = np.__version__
+            a["scipy_version"] = scipy.__version__
+            a["h5py_version"] = h5py.__version__
+            a["git_commit"] = _git_commit()
+            a["symmetry"] = spec.run.symmetry
+            a["model"] = spec.impurity.model
+            tw = result.twists
+            c = h.create_group("chain")
+            _ds(c, "z", [t.z for t in tw], "1")
+            _ds(c, "onsite", _pad([t.onsite for t in tw]), "D")
+            _ds(c, "hopping", _pad([t.hopping for t in tw]), "D")
+            _ds(c, "coupling_sq", [t.coupling_sq for t in tw], "D")
+            main = int(np.argmax([t.z for t in tw]))
+            _write_flow(h, tw[main].flow)
+            _write_thermo(h, result.thermo)
+            g = h.create_group("twists")
+            for k, t in enumerate(tw):
+                gk = g.create_group(str(k))
+                gk.attrs["z"] = t.z
+                gk.attrs["diag_seconds"] = t.diag_seconds
+                gk.attrs["total_seconds"] = t.total_seconds
+                _write_flow(gk, t.flow)
+                _write_thermo(gk, t.thermo)
+            s = h.create_group("summary")
+            sm = result.summary
+            for name in ("kondo_temperature_wilson", "kondo_temperature_crossover", "wilson_ratio",
+                         "lowest_temperature_reached"):
+                v = getattr(sm, name)
+                s.attrs[name] = np.nan if v is None else float(v)
+            s.attrs["wall_seconds"] = float(result.wall_seconds)
+            s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
+    return target
+
+
+@dataclass
+class StoredResult:
+    """What a result file holds, read back into plain arrays (see module docstring)."""
+
+    path: str
+    attrs: dict
+    chain: dict
+    flow: dict
+    diagnostics: dict
+    thermodynamics: dict
+    twists: list
+    summary: dict
+    warnings: list = field(default_factory=list)
+
+
+def _group_dict(g):
+    return {k: g[k][()] for k in g if hasattr(g[k], "shape")}
+
+
+def read_result(path: str | Path) -> StoredResult:
+    """Read a result file written by :func:`write_result`.
+
+    Raises
+    ------
+    NrgInputError
+        If the file is missing or not an nrgsolve result file.
+    """
+    import h5py
+
+    p = Path(path)
+    if not p.is_file():
+        raise NrgInputError(f"{p}: no such result file")
+    try:
+        with h5py.File(p, "r") as h:
+            if "format_version" not in h.attrs:
+                raise NrgInputError(f"{p}: not an nrgsolve result file (no format_version attribute)")
+            attrs = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in h.attrs.items()}
+            twists = []
+            for k in sorted(h["twists"], key=int) if "twists" in h else []:
+                gk = h["twists"][k]
+                twists.append({"z": float(gk.attrs["z"]), "flow": _group_dict(gk["flow"]),
+                               "diagnostics": _group_dict(gk["diagnostics"]),
+                               "thermodynamics": _group_dict(gk["thermodynamics"])})
+            summary = {k: v for k, v in h["summary"].attrs.items() if k != "warnings"}
+            warns = [w.decode() for w in h["summary"].attrs.get("warnings", []) if w]
+            return StoredResult(str(p), attrs, _group_dict(h["chain"]), _group_dict(h["flow"]),
+                                _group_dict(h["diagnostics"]), _group_dict(h["thermodynamics"]),
+                                twists, summary, warns)
+    except (OSError, KeyError) as exc:
+        raise NrgInputError(f"{p}: cannot read result file ({exc})") from None

@@ -1,0 +1,42 @@
+"""Shared helpers for the tests: Wilson's closed-form chain and exact free-fermion spectra."""
+
+import itertools
+
+import numpy as np
+import pytest
+
+
+def wilson_hopping(n, Lam, D=1.0):
+    """Flat band, Wilson's discretization, z = 1 (Wilson 1975; Bulla, Costi, Pruschke RMP 80, 395 (2008))."""
+    n = np.asarray(n, dtype=float)
+    return (D * 0.5 * (1 + 1 / Lam) * (1 - Lam ** (-n - 1))
+            / np.sqrt((1 - Lam ** (-2 * n - 1)) * (1 - Lam ** (-2 * n - 3))) * Lam ** (-n / 2))
+
+
+def omega(N, Lam, D=1.0):
+    """Our energy unit of iteration N at z = 1: D (1+1/Λ)/2 Λ^{-(N-1)/2}."""
+    return D * 0.5 * (1 + 1 / Lam) * Lam ** (-(N - 1) / 2)
+
+
+def many_body_levels(single_particle, n_lowest=None, spinful=True):
+    """Exact many-body excitation energies of free fermions from single-particle energies.
+
+    Enumerates every occupation of the given levels (both spins when ``spinful``)
+    and returns the sorted excitation energies (ground state at 0), one entry per
+    many-body state.
+    """
+    eps = np.asarray(single_particle, float)
+    if spinful:
+        eps = np.repeat(eps, 2)
+    m = len(eps)
+    assert m <= 22, "too many levels to enumerate"
+    occ = (np.arange(2 ** m)[:, None] >> np.arange(m)[None, :]) & 1
+    E = occ @ eps
+    E = np.sort(E)
+    E -= E[0]
+    return E if n_lowest is None else E[:n_lowest]
+
+
+def expand_multiplets(energies, multiplicity):
+    """Repeat every multiplet energy 2S+1 times, sorted."""
+    return np.sort(np.repeat(np.asarray(energies), np.asarray(multiplicity, dtype=int)))
