@@ -108,6 +108,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",
                        "parallel processes for the twists", lambda n: n >= 0),
+        "bath_reference": Key(str, "nrg", "-", "nrg | exact",
+                              "how the bare-chain thermodynamics subtracted from the impurity run is computed: "
+                              "an NRG run with the same truncation (errors cancel) or exact single-particle",
+                              choices=("nrg", "exact")),
         "flow_levels": Key(int, 40, "levels", ">= 1", "lowest levels per iteration stored for the flow",
                            lambda n: n >= 1),
     },
@@ -176,6 +180,7 @@ class RunSettings:
     beta_bar: float
     symmetry: str
     workers: int
+    bath_reference: str
     flow_levels: int
 
 
@@ -396,7 +401,7 @@ def load_config(path: str | Path) -> RunSpec:
     try:
         text = p.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"{path}: cannot read config file ({exc.__class__.__name__}: {exc.strerror or exc})") from None
+        raise ConfigError(f"{path}: cannot read config file ({exc.__class__.__name__}: {getattr(exc, 'strerror', None) or exc})") from None
     return parse_config(text, str(p))
 
 
@@ -418,6 +423,7 @@ def config_reference_markdown() -> str:
             default = "—" if k.default is None else repr(k.default).replace("'", '"')
             if isinstance(k.default, bool):
                 default = str(k.default).lower()
-            lines.append(f"| `{table}.{key}` | {k.meaning} | {k.unit} | {default} | {k.allowed} |")
-    lines.append(f"| `sweep.*` | {SWEEP_NOTE} | | | |")
+            cells = [str(c).replace("|", "\\|") for c in (k.meaning, k.unit, default, k.allowed)]
+            lines.append(f"| `{table}.{key}` | " + " | ".join(cells) + " |")
+    lines.append("| `sweep.*` | " + SWEEP_NOTE.replace("|", "\\|") + " | | | |")
     return "\n".join(lines)

@@ -28,7 +28,7 @@ from .discretize import twists as twist_values
 from .chain import build_chain
 from .engine import make_symmetry, run_chain, EngineSettings
 from .engine.iterate import Step
-from .models import kondo_block, two_channel_kondo_block, anderson_block
+from .models import kondo_block, two_channel_kondo_block, anderson_block, bare_chain_block
 from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
                           ThermoCurve, KondoSummary, FlowSpectrum)
 
@@ -62,15 +62,21 @@ class RunResult:
     warnings: list = field(default_factory=list)
 
 
-def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0) -> float:
-    """ω_N(z) = D (1+1/Λ)/2 · Λ^{−(N−1)/2} · Λ^{1−z} (units of D)."""
-    return half_bandwidth * 0.5 * (1 + 1 / Lambda) * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
+def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
+    """ω_N(z) = D c_Λ · Λ^{−(N−1)/2} · Λ^{1−z} (units of D).
+
+    c_Λ is the large-n limit of t_n Λ^{n/2}/D for the flat band at z = 1:
+    (1+1/Λ)/2 for Wilson's scheme (Wilson 1975), (1−1/Λ)/ln Λ for the adaptive
+    scheme, so that the last hopping in units of ω_N tends to 1.
+    """
+    c = 0.5 * (1 + 1 / Lambda) if scheme == "wilson" else (1 - 1 / Lambda) / math.log(Lambda)
+    return half_bandwidth * c * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
 
 
 def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
-                 half_bandwidth: float = 1.0) -> int:
+                 half_bandwidth: float = 1.0, scheme: str = "wilson") -> int:
     """Chain sites 0..N with N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature."""
-    w0 = energy_scale(1, Lambda, z, half_bandwidth) / beta_bar
+    w0 = energy_scale(1, Lambda, z, half_bandwidth, scheme) / beta_bar
     N = max(1, 1 + math.ceil(2 * math.log(w0 / lowest_temperature) / math.log(Lambda) - 1e-9))
     return N + 1
 
@@ -130,7 +136,7 @@ def solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResul
     bath = bath_from_spec(spec) if bath is None else bath
     d, r = spec.discretization, spec.run
     D = bath.half_bandwidth
-    n_sites = sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, D)
+    n_sites = sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, D, d.scheme)
     chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme, wilson_correction=d.wilson_correction)
     block, n_channels = _model_block(spec, chain, bath)
     sym = make_symmetry(r.symmetry, n_channels)
@@ -142,17 +148,32 @@ def solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResul
             hop = tuple(block.first_hopping[k] for k in range(n_channels))
         else:
             hop = (float(chain.hopping[n - 1]),) * n_channels
-        steps.append(Step(n, (float(chain.onsite[n]),) * n_channels, hop, energy_scale(n, d.Lambda, z, D)))
+        steps.append(Step(n, (float(chain.onsite[n]),) * n_channels, hop, energy_scale(n, d.Lambda, z, D, d.scheme)))
     settings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                               flow_levels=r.flow_levels,
                               particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
-    res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D), sym, steps, settings, progress)
+    res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym, steps,
+                    settings, progress)
+    bath_records = None
+    diag = res.diag_seconds
+    if r.bath_reference == "nrg":
+        bare = sym.from_explicit(bare_chain_block(float(chain.onsite[0]), n_channels))
+        bsteps = [st for st in steps if st.index >= 1]
+        if first == 0:   # Anderson: the bath run starts at site 1 with the chain's own hopping t_0
+            bsteps = [Step(n, (float(chain.onsite[n]),) * n_channels, (float(chain.hopping[n - 1]),) * n_channels,
+                           energy_scale(n, d.Lambda, z, D, d.scheme)) for n in range(1, n_sites)]
+        bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
+                                   flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric())
+        bres = run_chain(bare, 0, energy_scale(0, d.Lambda, z, D, d.scheme), sym, bsteps, bsettings, None)
+        bath_records = bres.records
+        diag += bres.diag_seconds
     thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
-                                     abelian=(r.symmetry == "abelian"), n_channels=n_channels)
+                                     abelian=(r.symmetry == "abelian"), n_channels=n_channels,
+                                     bath_records=bath_records)
     flow = flow_spectrum(res.records, r.flow_levels)
     return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),
                        coupling_sq=float(chain.coupling_sq), flow=flow, thermo=thermo,
-                       diag_seconds=res.diag_seconds, total_seconds=time.perf_counter() - t0)
+                       diag_seconds=diag, total_seconds=time.perf_counter() - t0)
 
 
 def _worker_init():
@@ -171,7 +192,7 @@ def n_iterations(spec: RunSpec, bath=None) -> int:
     bath = bath_from_spec(spec) if bath is None else bath
     d, r = spec.discretization, spec.run
     first = 0 if spec.impurity.model in ("anderson", "resonant-level") else 1
-    return sum(sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, bath.half_bandwidth) - first
+    return sum(sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, bath.half_bandwidth, d.scheme) - first
                for z in twist_values(d.twists))
 
 

@@ -17,7 +17,7 @@ Conventions (all energies in units of the half-bandwidth D):
 * h is the Zeeman energy on the impurity only (h > 0 favours spin up).
 """
 
-from .kondo import kondo_block, two_channel_kondo_block
+from .kondo import kondo_block, two_channel_kondo_block, bare_chain_block
 from .anderson import anderson_block
 
-__all__ = ["kondo_block", "two_channel_kondo_block", "anderson_block"]
+__all__ = ["kondo_block", "two_channel_kondo_block", "bare_chain_block", "anderson_block"]

@@ -6,7 +6,7 @@ import numpy as np
 
 from ..engine.fock import FockSpace, ExplicitBlock
 
-__all__ = ["kondo_block", "two_channel_kondo_block"]
+__all__ = ["kondo_block", "two_channel_kondo_block", "bare_chain_block"]
 
 
 def _spin_dot(space: FockSpace, up: int):
@@ -66,3 +66,15 @@ def two_channel_kondo_block(exchange: float, exchange2: float, twice_spin: int =
     return ExplicitBlock(space=sp, hamiltonian=H,
                          last_site={0: (sp.creator(0), sp.creator(1)), 1: (sp.creator(2), sp.creator(3))},
                          scalar_ops={}, first_site=1, sz_ops={"impurity_sz": sp.local_sz})
+
+
+def bare_chain_block(onsite0: float = 0.0, n_channels: int = 1) -> ExplicitBlock:
+    """Chain site 0 alone (no impurity), for the bath-only reference run.
+
+    .. math:: H_0 = ε_0 \\sum_{kσ} n_{0kσ}
+    """
+    modes = [(k, s) for k in range(n_channels) for s in (1, -1)]
+    sp = FockSpace(modes, 0, n_channels)
+    n0 = sum(sp.number(j) for j in range(len(modes)))
+    last = {k: (sp.creator(2 * k), sp.creator(2 * k + 1)) for k in range(n_channels)}
+    return ExplicitBlock(space=sp, hamiltonian=onsite0 * n0, last_site=last, first_site=1)

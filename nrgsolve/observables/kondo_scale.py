@@ -7,11 +7,14 @@
 * Wilson ratio R = (4π²/3) χ_imp(0)/γ_imp with γ_imp = lim C_imp/T
   (R = 2 in the Kondo limit, R = 1 for U = 0; Wilson 1975, Yamada 1975).
 
-A limit T → 0 counts as *reached* only if the run went far enough below the
-crossover: T·χ_imp at the lowest temperature is below ``LOW_TCHI`` and
-T·χ_imp/T varies by less than ``FLAT_TOL`` over the lowest
-``FLAT_DECADES`` decades.  Otherwise the value is reported as not reached
-(``None``), e.g. for a ferromagnetic coupling or a free spin.
+The limits χ_imp(0) and γ_imp are read off in the Fermi-liquid window
+T_K/``WINDOW_LOW`` ≤ T ≤ T_K/``WINDOW_HIGH`` (T_K from the crossover
+definition): far enough below T_K for the T → 0 limit, high enough that
+T·χ_imp is not yet a difference of nearly equal numbers at the roundoff
+and truncation-noise level.  A limit counts as *reached* only if the run
+covers that whole window and the ratio is flat there (spread below
+``FLAT_TOL`` for χ, ``3 FLAT_TOL`` for γ); otherwise it is reported as not
+reached (``None``), e.g. for a ferromagnetic coupling or a free spin.
 Units: temperatures in D; χ in (g μ_B)²/k_B.
 """
 
@@ -26,9 +29,9 @@ __all__ = ["KondoSummary", "kondo_summary", "WILSON_NUMBER", "CROSSOVER_VALUE"]
 
 WILSON_NUMBER = 0.4128
 CROSSOVER_VALUE = 0.07
-LOW_TCHI = 0.01
-FLAT_TOL = 0.02
-FLAT_DECADES = 1.0
+FLAT_TOL = 0.03
+WINDOW_HIGH = 30.0
+WINDOW_LOW = 3000.0
 
 
 @dataclass(frozen=True)
@@ -43,18 +46,20 @@ class KondoSummary:
     lowest_temperature_reached: float
 
 
-def _low_t_limit(T, y, decades=FLAT_DECADES, tol=FLAT_TOL):
-    """lim_{T→0} y(T) from the lowest ``decades`` of the grid, or None if y is not flat there."""
-    sel = T <= T[0] * 10 ** decades
+def _window_limit(T, y, lo, hi, tol):
+    """Mean of y over lo ≤ T ≤ hi, or None if the grid does not cover the window or y is not flat there."""
+    if T[0] > lo * 1.0001:
+        return None
+    sel = (T >= lo) & (T <= hi)
     if sel.sum() < 3:
         return None
     vals = y[sel]
-    ref = vals[0]
-    if ref == 0 or not np.all(np.isfinite(vals)):
+    mean = float(np.mean(vals))
+    if not np.all(np.isfinite(vals)) or mean <= 0:
         return None
-    if np.max(np.abs(vals / ref - 1.0)) > tol:
+    if (vals.max() - vals.min()) / mean > tol:
         return None
-    return float(ref)
+    return mean
 
 
 def kondo_summary(temperature, T_chi, heat) -> KondoSummary:
@@ -76,10 +81,6 @@ def kondo_summary(temperature, T_chi, heat) -> KondoSummary:
     T = np.asarray(temperature, float)
     tc = np.asarray(T_chi, float)
     C = np.asarray(heat, float)
-    screened = tc[0] < LOW_TCHI
-    chi0 = _low_t_limit(T, tc / T) if screened else None
-    gamma0 = _low_t_limit(T, C / T, tol=3 * FLAT_TOL) if screened else None
-    tk_w = WILSON_NUMBER / (4.0 * chi0) if chi0 else None
     tk_c = None
     # coming down from high T: last crossing of 0.07 from above
     below = tc < CROSSOVER_VALUE
@@ -88,5 +89,11 @@ def kondo_summary(temperature, T_chi, heat) -> KondoSummary:
         t0, t1 = math.log(T[i - 1]), math.log(T[i])
         y0, y1 = tc[i - 1], tc[i]
         tk_c = float(math.exp(t0 + (CROSSOVER_VALUE - y0) * (t1 - t0) / (y1 - y0)))
+    chi0 = gamma0 = None
+    if tk_c is not None:
+        lo, hi = tk_c / WINDOW_LOW, tk_c / WINDOW_HIGH
+        chi0 = _window_limit(T, tc / T, lo, hi, FLAT_TOL)
+        gamma0 = _window_limit(T, C / T, lo, hi, 3 * FLAT_TOL)
+    tk_w = WILSON_NUMBER / (4.0 * chi0) if chi0 else None
     ratio = (4 * math.pi ** 2 / 3) * chi0 / gamma0 if (chi0 and gamma0 and gamma0 > 0) else None
     return KondoSummary(tk_w, tk_c, ratio, chi0, gamma0, float(T[0]))
