@@ -85,7 +85,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                      "table bath: file with ε (units of D) and g(ε) >= 0; relative to the config file"),
     },
     "discretization": {
-        "Lambda": Key(NUM, 2.0, "-", "> 1", "logarithmic discretization parameter Λ",
+        "Lambda": Key(NUM, 3.0, "-", "> 1", "logarithmic discretization parameter Λ",
                       lambda x: _finite(x) and x > 1),
         "twists": Key(int, 1, "-", ">= 1", "number of evenly spaced twists z = k/n, k = 1..n (z-averaging)",
                       lambda n: n >= 1),
@@ -102,7 +102,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "lowest_temperature": Key(NUM, 1e-8, "D", "> 0 and < half_bandwidth",
                                   "lowest temperature wanted; sets the chain length",
                                   lambda t: _finite(t) and t > 0),
-        "beta_bar": Key(NUM, 0.75, "-", "> 0", "T_N = ω_N / beta_bar: temperature evaluated at iteration N",
+        "beta_bar": Key(NUM, 1.0, "-", "> 0", "T_N = ω_N / beta_bar: temperature evaluated at iteration N",
                         lambda b: _finite(b) and b > 0),
         "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
                         choices=SYMMETRIES),

@@ -75,10 +75,14 @@ def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 
 
 def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
                  half_bandwidth: float = 1.0, scheme: str = "wilson") -> int:
-    """Chain sites 0..N with N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature."""
+    """Chain sites 0..N+1, N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature.
+
+    One iteration more than N, so that the even-N and the odd-N points (averaged separately) both
+    reach the lowest temperature.
+    """
     w0 = energy_scale(1, Lambda, z, half_bandwidth, scheme) / beta_bar
     N = max(1, 1 + math.ceil(2 * math.log(w0 / lowest_temperature) / math.log(Lambda) - 1e-9))
-    return N + 1
+    return N + 2
 
 
 def bath_from_spec(spec: RunSpec):
@@ -229,8 +233,9 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
         saved = {v: os.environ.get(v) for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
         _worker_init()
         try:
-            with ctx.Manager() as manager:
-                queue = manager.Queue() if progress is not None else None
+            import contextlib
+            with (ctx.Manager() if progress is not None else contextlib.nullcontext()) as manager:
+                queue = manager.Queue() if manager is not None else None
                 with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init) as pool:
                     futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
                     while not all(f.done() for f in futs):

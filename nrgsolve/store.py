@@ -88,6 +88,12 @@ def check_output_path(path: str | Path, force: bool) -> Path:
     return p
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 class atomic_path:
     """Context manager: yields a temporary path beside ``target``; renames it on success, removes it on failure."""
 
@@ -97,6 +103,7 @@ class atomic_path:
     def __enter__(self):
         fd, tmp = tempfile.mkstemp(prefix=f".{self.target.name}.", suffix=".part", dir=self.target.parent)
         os.close(fd)
+        os.chmod(tmp, 0o666 & ~_umask())    # mkstemp makes 0600; give the final file the usual permissions
         self.tmp = Path(tmp)
         return self.tmp
 

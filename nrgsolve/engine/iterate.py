@@ -60,7 +60,7 @@ class EngineSettings:
 
     kept_states: int
     energy_cutoff: float | None = None
-    beta_bar: float = 0.75
+    beta_bar: float = 1.0
     flow_levels: int = 40
     degeneracy_tol: float = 1e-6
     driver: str = "evd"

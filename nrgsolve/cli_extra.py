@@ -1,0 +1,151 @@
+"""Commands ``sweep``, ``plot flow``, ``plot thermo`` and ``inspect`` of the command line.
+
+:func:`add_commands` registers them on the sub-command parser built by
+:mod:`nrgsolve.cli`; each handler parses nothing itself, calls the library
+and reports.  Input errors raise :class:`~nrgsolve.errors.NrgInputError`,
+which the main entry point turns into one line on stderr and exit code 2.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from .errors import NrgInputError
+
+__all__ = ["add_commands", "cmd_sweep", "cmd_plot_flow", "cmd_plot_thermo", "cmd_inspect"]
+
+
+def _positive_int(name):
+    def parse(text):
+        try:
+            n = int(text)
+        except ValueError:
+            n = None
+        if n is None or n < 1:
+            import argparse
+            raise argparse.ArgumentTypeError(f"{name}: got {text!r}; allowed: an integer >= 1")
+        return n
+    return parse
+
+
+def _bar(total, quiet, desc, unit):
+    from tqdm import tqdm
+    return tqdm(total=total, desc=desc, unit=unit, disable=quiet or not sys.stderr.isatty(), leave=False)
+
+
+def cmd_sweep(args) -> int:
+    """Run every point of a sweep config; write point files and index.csv."""
+    from .config import load_config
+    from .sweep import WorkerLost, default_folder, run_sweep, sweep_points
+
+    spec = load_config(args.config)
+    folder = Path(args.output_folder) if args.output_folder else default_folder(spec)
+    n = len(sweep_points(spec))
+    with _bar(n, args.quiet, f"sweep {Path(args.config).name}", "point") as bar:
+        try:
+            out = run_sweep(spec, folder, jobs=args.jobs, scheduler=args.scheduler, force=args.force,
+                            progress=bar.update)
+        except WorkerLost as exc:
+            done = len(list(folder.glob("point_*.h5"))) if folder.is_dir() else 0
+            print(f"nrgsolve: error: {exc}; {done} of {n} point files are on disk in {folder}; "
+                  f"run the same command again to resume", file=sys.stderr)
+            return 1
+    if not args.quiet:
+        print(f"{len(out.rows)} points: {len(out.computed)} computed, {len(out.skipped)} already done")
+        print(f"wrote {out.index}")
+    return 0
+
+
+def _default_png(name):
+    return Path.cwd() / name
+
+
+def cmd_plot_flow(args) -> int:
+    """Draw the level flow of one result file."""
+    from .plots import plot_flow, save_figure
+    from .store import read_result
+
+    stored = read_result(args.file)
+    png = Path(args.output) if args.output else _default_png(f"{Path(args.file).stem}_flow.png")
+    _check_png(png, args.force)
+    fig = plot_flow(stored, levels=args.levels)
+    written = save_figure(fig, png, force=args.force)
+    if not args.quiet:
+        print("wrote " + ", ".join(str(p) for p in written))
+    return 0
+
+
+def cmd_plot_thermo(args) -> int:
+    """Draw T·χ, entropy or specific heat of one or more result files on one axis."""
+    from .plots import plot_thermo, save_figure
+    from .store import read_result
+
+    results = [read_result(f) for f in args.files]
+    png = Path(args.output) if args.output else _default_png(f"thermo_{args.quantity}.png")
+    _check_png(png, args.force)
+    fig = plot_thermo(results, quantity=args.quantity, scale=args.scale)
+    written = save_figure(fig, png, force=args.force)
+    if not args.quiet:
+        print("wrote " + ", ".join(str(p) for p in written))
+    return 0
+
+
+def _check_png(png: Path, force: bool):
+    # fail before any drawing: a wrong name or an existing file is an input error
+    if png.suffix.lower() != ".png":
+        raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
+    for t in (png, png.with_suffix(".pdf")):
+        if t.exists() and not force:
+            raise NrgInputError(f"--output: {t} already exists; use --force to overwrite or choose another --output")
+
+
+def cmd_inspect(args) -> int:
+    """Print what a result file holds."""
+    from .inspect_result import describe
+    from .store import read_result
+
+    sys.stdout.write(describe(read_result(args.file)))
+    return 0
+
+
+def add_commands(subparsers) -> None:
+    """Register ``sweep``, ``plot`` and ``inspect`` on the ``nrgsolve`` sub-command parser."""
+    s = subparsers.add_parser("sweep", help="run every point of a [sweep] config, one result file per point")
+    s.add_argument("config", help="TOML config with a [sweep] table")
+    s.add_argument("--jobs", "-j", type=_positive_int("--jobs"), default=1,
+                   help="points run in parallel processes (default 1)")
+    s.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run the points on an existing dask.distributed cluster (e.g. tcp://host:8786)")
+    s.add_argument("--output-folder", metavar="DIR",
+                   help="folder for point_NNNN.h5 and index.csv (default: [sweep] folder, else <config name>_sweep)")
+    s.add_argument("--force", action="store_true", help="recompute points whose files already exist")
+    s.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
+    s.set_defaults(func=cmd_sweep)
+
+    p = subparsers.add_parser("plot", help="draw figures from result files")
+    kinds = p.add_subparsers(dest="plot_kind", parser_class=type(p))
+    kinds.required = True
+    f = kinds.add_parser("flow", help="energy-level flow of one run (even and odd iterations)")
+    f.add_argument("file", help="result file (.h5)")
+    f.add_argument("--levels", type=_positive_int("--levels"), default=12,
+                   help="lowest levels drawn per iteration (default 12)")
+    f.add_argument("--output", "-o", metavar="PNG", help="image file (default: <file name>_flow.png here; "
+                                                          "a PDF is written beside it)")
+    f.add_argument("--force", action="store_true", help="overwrite existing images")
+    f.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    f.set_defaults(func=cmd_plot_flow)
+    t = kinds.add_parser("thermo", help="impurity thermodynamics of one or more runs on a log-T axis")
+    t.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
+    t.add_argument("--quantity", choices=("T_chi", "entropy", "heat"), default="T_chi",
+                   help="T·χ_imp, S_imp or C_imp (default T_chi)")
+    t.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
+    t.add_argument("--output", "-o", metavar="PNG", help="image file (default: thermo_<quantity>.png here; "
+                                                          "a PDF is written beside it)")
+    t.add_argument("--force", action="store_true", help="overwrite existing images")
+    t.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    t.set_defaults(func=cmd_plot_thermo)
+
+    i = subparsers.add_parser("inspect", help="show provenance, config, summary and diagnostics of a result file")
+    i.add_argument("file", help="result file (.h5)")
+    i.set_defaults(func=cmd_inspect)

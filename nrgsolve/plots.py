@@ -1,0 +1,338 @@
+"""Figures drawn from stored result files only (never from live numerics).
+
+Every function takes :class:`~nrgsolve.store.StoredResult` objects (from
+:func:`nrgsolve.store.read_result`) and an optional ``ax``, and returns the
+matplotlib figure.  Nothing here computes physics or calls ``show()``;
+matplotlib is imported lazily and figures are made on the Agg canvas
+directly (no pyplot state), so plotting is safe in worker processes and
+tests.
+
+Units: temperatures in D (or T/T_K with ``scale="kondo"``), T·χ_imp in
+(g μ_B)²/k_B, S_imp and C_imp in k_B, flow energies in ω_N.
+"""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+
+from .config import parse_config
+from .errors import NrgInputError
+from .store import StoredResult, atomic_path
+
+__all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_thermo",
+           "differing_parameters", "run_labels", "save_figure"]
+
+#: quantity name -> (dataset in /thermodynamics, axis label with units)
+THERMO_QUANTITIES = {
+    "T_chi": ("T_chi_imp", r"$T\chi_\mathrm{imp}$  [$(g\mu_B)^2/k_B$]"),
+    "entropy": ("S_imp", r"$S_\mathrm{imp}$  [$k_B$]"),
+    "heat": ("C_imp", r"$C_\mathrm{imp}$  [$k_B$]"),
+}
+
+#: Short legend names of config parameters (others are shown as ``table.key``).
+PARAMETER_LABELS = {
+    "impurity.model": "model", "impurity.exchange": "ρJ", "impurity.exchange_second_channel": "ρJ₂",
+    "impurity.potential_scattering": "ρK", "impurity.spin": "S", "impurity.level": "ε_d",
+    "impurity.interaction": "U", "impurity.hybridization": "Γ", "impurity.field": "h",
+    "bath.shape": "bath", "bath.half_bandwidth": "D", "bath.exponent": "r",
+    "discretization.Lambda": "Λ", "discretization.twists": "twists", "run.kept_states": "kept states",
+    "run.beta_bar": "β̄", "run.symmetry": "symmetry",
+}
+#: Keys that never distinguish runs in a legend (they do not change the result).
+_IGNORED = {"output.file", "run.workers", "run.lowest_temperature", "run.flow_levels"}
+
+
+def new_figure(nrows: int = 1, ncols: int = 1, figsize=(6.4, 4.4), **kw):
+    """A figure on the Agg canvas (no pyplot), with its axes.
+
+    Returns
+    -------
+    (Figure, ndarray of Axes or Axes)
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=figsize, layout="constrained")
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(nrows, ncols, squeeze=True, **kw)
+    return fig, axes
+
+
+def _spin_text(twice: int) -> str:
+    f = Fraction(int(twice), 2)
+    return str(f.numerator) if f.denominator == 1 else f"{f.numerator}/{f.denominator}"
+
+
+def _level_label(q, twice_s, symmetry) -> str:
+    return f"({int(q)}, {_spin_text(twice_s)})"
+
+
+def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None):
+    """Energy-level flow: the lowest levels against iteration N, even and odd N apart.
+
+    Parameters
+    ----------
+    result : StoredResult
+        A stored run (its ``/flow`` group, twist z = 1).
+    levels : int
+        Number of lowest levels (multiplets for SU(2), states for the abelian
+        mode) drawn per iteration, >= 1.
+    labelled : int
+        The lowest this-many levels of the last iteration of each panel get a
+        quantum-number label (Q, S) or (Q, S_z); coinciding levels share one.
+    ax : pair of Axes, optional
+        Axes for the even and the odd iterations (default: a new figure with two panels).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    NrgInputError
+        If ``levels`` < 1 or the file holds no flow.
+    """
+    if not isinstance(levels, int) or levels < 1:
+        raise NrgInputError(f"--levels: got {levels!r}; allowed: an integer >= 1")
+    flow = result.flow
+    if "energy" not in flow or np.size(flow["energy"]) == 0:
+        raise NrgInputError(f"{result.path}: holds no energy-level flow (/flow/energy)")
+    N = np.asarray(flow["iteration"], dtype=int)
+    E = np.asarray(flow["energy"], dtype=float)[:, :levels]
+    Q = np.asarray(flow["charge"])[:, :levels]
+    S = np.asarray(flow["twice_spin"])[:, :levels]
+    symmetry = str(result.attrs.get("symmetry", "su2"))
+    spin_name = "S" if symmetry == "su2" else "S_z"
+    if ax is None:
+        fig, axes = new_figure(1, 2, figsize=(9.0, 4.6), sharey=True)
+    else:
+        axes = list(ax)
+        if len(axes) != 2:
+            raise ValueError("plot_flow: ax must be a pair of Axes (even, odd)")
+        fig = axes[0].figure
+    finite = E[np.isfinite(E)]
+    top = float(np.max(finite)) if finite.size else 1.0
+    for parity, a in zip((0, 1), axes):
+        rows = np.flatnonzero(N % 2 == parity)
+        if rows.size == 0:
+            a.set_title(f"{'even' if parity == 0 else 'odd'} N: none stored")
+            continue
+        colors = [f"C{k % 10}" for k in range(E.shape[1])]
+        for k in range(E.shape[1]):
+            a.plot(N[rows], E[rows, k], "-", color=colors[k], lw=1.0, marker=".", ms=2.5)
+        last = rows[-1]
+        groups = []                                   # (energy, [labels]) of coinciding levels
+        for k in range(min(labelled, E.shape[1])):
+            e = E[last, k]
+            if not np.isfinite(e):
+                continue
+            lab = _level_label(Q[last, k], S[last, k], symmetry)
+            if groups and abs(groups[-1][0] - e) < 0.02 * max(top, 1e-12):
+                if lab not in groups[-1][1]:
+                    groups[-1][1].append(lab)
+            else:
+                groups.append((e, [lab]))
+        x_text = N[last] + 0.015 * max(N[rows[-1]] - N[rows[0]], 1)
+        for e, labs in groups:
+            text = " ".join(labs[:4]) + (" …" if len(labs) > 4 else "")
+            a.annotate(text, (x_text, e), fontsize=7, va="center", ha="left",
+                       annotation_clip=False)
+        a.set_xlabel("iteration N")
+        a.set_title(f"{'even' if parity == 0 else 'odd'} N")
+        a.set_xlim(N[rows[0]], N[last] + 0.22 * max(N[last] - N[rows[0]], 1))
+        a.grid(alpha=0.25)
+    axes[0].set_ylabel(r"$E/\omega_N$ (from the ground state)")
+    model = result.attrs.get("model", "")
+    fig.suptitle(f"{Path(result.path).stem}: level flow, {model}, labels ({'Q'}, ${spin_name}$)", fontsize=10)
+    return fig
+
+
+def _parsed(result: StoredResult):
+    try:
+        return parse_config(result.attrs.get("config_text", ""),
+                            result.attrs.get("config_path", "<stored config>") or "<stored config>")
+    except NrgInputError:
+        return None
+
+
+def differing_parameters(results: list[StoredResult]) -> list[str]:
+    """The config parameters (``table.key``) whose values differ between the runs.
+
+    Configs are read from each file's ``config_text`` attribute; settings that
+    do not change the physics shown (output file, workers, lowest temperature,
+    stored flow levels) are ignored.  Returns an empty list when a config
+    cannot be parsed or all agree.
+    """
+    specs = [_parsed(r) for r in results]
+    if len(specs) < 2 or any(s is None for s in specs):
+        return []
+    flat = []
+    for s in specs:
+        d = s.as_dict()
+        flat.append({f"{t}.{k}": v for t in d for k, v in d[t].items()})
+    keys = [k for k in flat[0] if k not in _IGNORED and len({repr(f[k]) for f in flat}) > 1]
+    return keys
+
+
+def _value_text(v) -> str:
+    if v is None:
+        return "default"
+    if isinstance(v, float):
+        return f"{v:.4g}"
+    return str(v)
+
+
+#: More differing parameters than this make a legend unreadable: file names are used instead.
+MAX_LEGEND_PARAMETERS = 3
+
+
+def run_labels(results: list[StoredResult]) -> list[str]:
+    """Legend labels: the differing parameters and their values, else the file names.
+
+    File names are used when no parameter differs, a config cannot be read,
+    or more than :data:`MAX_LEGEND_PARAMETERS` parameters differ.
+    """
+    keys = differing_parameters(results)
+    if not keys or len(keys) > MAX_LEGEND_PARAMETERS:
+        return [Path(r.path).stem for r in results]
+    specs = [_parsed(r).as_dict() for r in results]
+    out = []
+    for s in specs:
+        parts = []
+        for k in keys:
+            t, key = k.split(".", 1)
+            parts.append(f"{PARAMETER_LABELS.get(k, k)} = {_value_text(s[t][key])}")
+        out.append(", ".join(parts))
+    if len(set(out)) < len(out):                   # e.g. only ignored keys differ: add file names
+        out = [f"{o} ({Path(r.path).stem})" for o, r in zip(out, results)]
+    return out
+
+
+def kondo_temperature(result: StoredResult) -> float:
+    """The stored crossover Kondo temperature T_K (D).
+
+    Raises
+    ------
+    NrgInputError
+        If the file holds none (NaN: not reached).
+    """
+    tk = float(result.summary.get("kondo_temperature_crossover", math.nan))
+    if not (math.isfinite(tk) and tk > 0):
+        raise NrgInputError(f"{result.path}: no Kondo temperature stored (summary kondo_temperature_crossover "
+                            f"not reached); plot without --scale kondo")
+    return tk
+
+
+def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str | None = None,
+                labels: list[str] | None = None, ax=None):
+    """Impurity thermodynamics of several runs on one logarithmic temperature axis.
+
+    Parameters
+    ----------
+    results : list of StoredResult
+        Stored runs (their z-averaged ``/thermodynamics``).
+    quantity : {"T_chi", "entropy", "heat"}
+        T·χ_imp in (g μ_B)²/k_B, S_imp in k_B, or C_imp in k_B.
+    scale : {None, "kondo"}
+        ``None``: T in units of D; ``"kondo"``: T/T_K with the stored
+        crossover Kondo temperature of each run.
+    labels : list of str, optional
+        Legend entries (default: :func:`run_labels`).
+    ax : Axes, optional
+        Axes to draw into (default: a new figure).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    NrgInputError
+        Unknown quantity or scale, no runs, or ``scale="kondo"`` for a run without T_K.
+    """
+    if quantity not in THERMO_QUANTITIES:
+        raise NrgInputError(f"--quantity: got {quantity!r}; allowed: {', '.join(THERMO_QUANTITIES)}")
+    if scale not in (None, "kondo"):
+        raise NrgInputError(f"--scale: got {scale!r}; allowed: kondo")
+    if not results:
+        raise NrgInputError("plot thermo: give at least one result file")
+    name, ylabel = THERMO_QUANTITIES[quantity]
+    scales = [kondo_temperature(r) if scale == "kondo" else 1.0 for r in results]
+    for r in results:
+        if name not in r.thermodynamics or "temperature" not in r.thermodynamics:
+            raise NrgInputError(f"{r.path}: holds no /thermodynamics/{name}")
+    labels = run_labels(results) if labels is None else list(labels)
+    if ax is None:
+        fig, ax = new_figure()
+    else:
+        fig = ax.figure
+    for r, tk, lab in zip(results, scales, labels):
+        T = np.asarray(r.thermodynamics["temperature"], dtype=float)
+        y = np.asarray(r.thermodynamics[name], dtype=float)
+        keep = np.isfinite(T) & np.isfinite(y) & (T > 0)
+        ax.plot(T[keep] / tk, y[keep], "-", lw=1.4, label=lab)
+    ax.set_xscale("log")
+    ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
+    ax.set_ylabel(ylabel)
+    ax.grid(alpha=0.25, which="both")
+    if len(results) > 1 or labels[0]:
+        ax.legend(fontsize=8, frameon=False)
+    return fig
+
+
+def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi: int = 100) -> list[Path]:
+    """Save a figure as PNG (and PDF beside it, same stem), atomically.
+
+    Parameters
+    ----------
+    fig : Figure
+    png : str or Path
+        Target ending in ``.png``.
+    force : bool
+        Overwrite existing files.
+    pdf : bool
+        Also write ``<stem>.pdf`` beside the PNG.
+    dpi : int
+        PNG resolution.
+
+    Returns
+    -------
+    list of Path
+        The files written.
+
+    Raises
+    ------
+    NrgInputError
+        If the name does not end in .png, or a target exists and ``force`` is False.
+    """
+    png = Path(png)
+    if png.suffix.lower() != ".png":
+        raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
+    targets = [png] + ([png.with_suffix(".pdf")] if pdf else [])
+    for t in targets:
+        if t.is_dir():
+            raise NrgInputError(f"--output: {t} is a folder; give a file name ending in .png")
+        if t.exists() and not force:
+            raise NrgInputError(f"--output: {t} already exists; use --force to overwrite or choose another --output")
+    try:
+        png.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise NrgInputError(f"--output: cannot create folder {png.parent} ({exc.strerror})") from None
+    managers = [atomic_path(t) for t in targets]
+    temps = []
+    try:
+        for m, t in zip(managers, targets):
+            tmp = m.__enter__()
+            temps.append((m, tmp))
+            fig.savefig(tmp, format=t.suffix[1:].lower(), dpi=dpi)
+    except BaseException as exc:
+        for m, _ in temps:
+            m.__exit__(type(exc), exc, None)
+        raise
+    for m, _ in temps:
+        m.__exit__(None, None, None)
+    return targets
