@@ -168,7 +168,8 @@ def _symmetrize_charge(energies):
 
 
 def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, steps: Sequence[Step],
-              settings: EngineSettings, progress: Callable[[int], None] | None = None) -> EngineResult:
+              settings: EngineSettings, progress: Callable[[int], None] | None = None,
+              vector_sink: Callable | None = None) -> EngineResult:
     """Iterate the impurity block along the chain.
 
     Parameters
@@ -185,6 +186,14 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
     settings : EngineSettings
     progress : callable, optional
         Called with the iteration index after each iteration.
+    vector_sink : callable, optional
+        Called after every added site as ``vector_sink(index, energies, vectors, layout, kept)``:
+        ``energies[L]`` (all eigenvalues of block L, units of ω_N, from the ground state),
+        ``vectors[L]`` (eigenvectors as columns, rows in the product basis),
+        ``layout[L]`` (list of ``((L_old, site_index), row_offset, rows)``: which kept
+        states of the previous iteration and which site multiplet each row range holds), and
+        ``kept[L]`` (number of lowest states kept).  Used by the spectral (backward) pass,
+        which may keep the vectors in memory or spill them to disk.
 
     Returns
     -------
@@ -293,6 +302,9 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
                 new_scalars[name][Ln] = U[:, :k].T @ OU[:, :k]
         result.records.append(_record(st.index, st.scale, ground, new_E, sym, kinfo, sdiag, settings, dims, dsec))
         result.diag_seconds += dsec
+        if vector_sink is not None:
+            lay = {Ln: [(key, off, n) for key, (off, n) in offsets[Ln].items()] for Ln in layout}
+            vector_sink(st.index, new_E, new_U, lay, new_kept)
         # creation operator of the new last site, in the kept basis
         new_F = {}
         for comp in sym.components:
