@@ -1,0 +1,117 @@
+#!/usr/bin/env python
+"""Benchmark of the iterative diagonalization (run it, don't time it in tests).
+
+Standard problem: symmetric Anderson model (U = 0.1 D, Γ = 0.01 D), flat band,
+Λ = 2, one twist, a fixed number of iterations.  For every kept_states and
+symmetry mode it prints the wall time per iteration, the time spent inside
+the dense diagonalizations (LAPACK through scipy.linalg.eigh), their ratio and
+the peak resident memory.  Each case runs in its own process so that the
+memory figures do not mix.  A second part times a standard Kondo run
+(Λ = 2, 1000 kept states, one twist, down to T = 1e-10 D) through the driver.
+
+Usage::
+
+    python scripts/benchmark.py                      # kept 500 1000 2000 4000, su2 and abelian
+    python scripts/benchmark.py --kept 1000 2000 --symmetry su2 --iterations 30
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import time
+
+
+def one_case(kept: int, symmetry: str, iterations: int, driver: str) -> dict:
+    import resource
+
+    import numpy as np
+
+    from nrgsolve.bath import make_bath
+    from nrgsolve.chain import build_chain
+    from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
+    from nrgsolve.engine.iterate import Step
+    from nrgsolve.models import anderson_block
+    from nrgsolve.solve import energy_scale
+
+    Lam = 2.0
+    chain = build_chain(make_bath("flat"), Lam, 1.0, iterations + 1)
+    V = np.sqrt(0.01 * chain.coupling_sq)
+    sym = make_symmetry(symmetry)
+    blk = sym.from_explicit(anderson_block(-0.05, 0.1, V))
+    steps = [Step(n, (float(chain.onsite[n]),), ((V if n == 0 else float(chain.hopping[n - 1])),),
+                  energy_scale(n, Lam)) for n in range(iterations + 1)]
+    t0 = time.perf_counter()
+    res = run_chain(blk, -1, energy_scale(-1, Lam), sym, steps,
+                    EngineSettings(kept_states=kept, driver=driver, particle_hole_symmetric=True))
+    wall = time.perf_counter() - t0
+    big = max(int(r.block_dims[0]) for r in res.records)
+    return {"kept": kept, "symmetry": symmetry, "iterations": len(res.records), "wall": wall,
+            "diag": res.diag_seconds, "largest_block": big,
+            "peak_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}
+
+
+def kondo_case() -> dict:
+    from nrgsolve.config import parse_config
+    from nrgsolve.solve import solve
+
+    spec = parse_config("""
+[impurity]
+model = "kondo"
+exchange = 0.15
+[discretization]
+Lambda = 2.0
+twists = 1
+[run]
+kept_states = 1000
+lowest_temperature = 1e-10
+""", "benchmark-kondo")
+    t0 = time.perf_counter()
+    res = solve(spec, workers=1)
+    return {"wall": time.perf_counter() - t0, "diag": sum(t.diag_seconds for t in res.twists),
+            "iterations": len(res.twists[0].flow.iteration), "T_K": res.summary.kondo_temperature_crossover}
+
+
+def main(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--kept", type=int, nargs="+", default=[500, 1000, 2000, 4000])
+    p.add_argument("--symmetry", nargs="+", default=["su2", "abelian"], choices=["su2", "abelian"])
+    p.add_argument("--iterations", type=int, default=25)
+    p.add_argument("--driver", default="evd", choices=["evd", "evr", "ev"])
+    p.add_argument("--no-kondo", action="store_true", help="skip the standard Kondo run")
+    p.add_argument("--case", help=argparse.SUPPRESS)
+    a = p.parse_args(argv)
+    if a.case:
+        kept, sym = a.case.split(":")
+        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver)))
+        return 0
+    print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}")
+    print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'wall/diag':>10} {'largest block':>14} {'peak MB':>8}")
+    rows = {}
+    for kept in a.kept:
+        for sym in a.symmetry:
+            out = subprocess.run([sys.executable, __file__, "--case", f"{kept}:{sym}", "--iterations",
+                                  str(a.iterations), "--driver", a.driver], capture_output=True, text=True)
+            if out.returncode != 0:
+                print(f"{kept:>6} {sym:>8} failed: {out.stderr.strip().splitlines()[-1]}")
+                continue
+            r = json.loads(out.stdout)
+            rows[(kept, sym)] = r
+            n = r["iterations"]
+            print(f"{kept:>6} {sym:>8} {r['wall'] / n:8.3f} {r['diag'] / n:12.3f} {r['wall'] / r['diag']:10.2f} "
+                  f"{r['largest_block']:>14} {r['peak_mb']:8.0f}", flush=True)
+    for kept in a.kept:
+        if (kept, "su2") in rows and (kept, "abelian") in rows:
+            print(f"kept {kept}: abelian / su2 wall time = {rows[(kept, 'abelian')]['wall'] / rows[(kept, 'su2')]['wall']:.1f}")
+    if not a.no_kondo:
+        k = kondo_case()
+        print(f"standard Kondo run (ρJ = 0.15, Λ = 2, 1000 kept, one twist, T down to 1e-10 D, impurity and bath runs): "
+              f"{k['wall']:.1f} s wall, {k['diag']:.1f} s in diagonalizations, {k['iterations']} iterations, "
+              f"T_K = {k['T_K']:.4g} D")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
