@@ -46,11 +46,12 @@ def cmd_sweep(args) -> int:
         try:
             out = run_sweep(spec, folder, jobs=args.jobs, scheduler=args.scheduler, force=args.force,
                             progress=bar.update)
-        except WorkerLost as exc:
+        except (WorkerLost, KeyboardInterrupt) as exc:
             done = len(list(folder.glob("point_*.h5"))) if folder.is_dir() else 0
-            print(f"nrgsolve: error: {exc}; {done} of {n} point files are on disk in {folder}; "
+            what = str(exc) if isinstance(exc, WorkerLost) else "interrupted"
+            print(f"nrgsolve: error: {what}; {done} of {n} point files are on disk in {folder}; "
                   f"run the same command again to resume", file=sys.stderr)
-            return 1
+            return 1 if isinstance(exc, WorkerLost) else 130
     if not args.quiet:
         print(f"{len(out.rows)} points: {len(out.computed)} computed, {len(out.skipped)} already done")
         print(f"wrote {out.index}")
@@ -124,7 +125,7 @@ def add_commands(subparsers) -> None:
     s.set_defaults(func=cmd_sweep)
 
     p = subparsers.add_parser("plot", help="draw figures from result files")
-    kinds = p.add_subparsers(dest="plot_kind", parser_class=type(p))
+    kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo}", parser_class=type(p))
     kinds.required = True
     f = kinds.add_parser("flow", help="energy-level flow of one run (even and odd iterations)")
     f.add_argument("file", help="result file (.h5)")

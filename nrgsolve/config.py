@@ -108,6 +108,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",
                        "parallel processes for the twists", lambda n: n >= 0),
+        "blas_threads": Key(int, 1, "threads", ">= 1",
+                            "BLAS/LAPACK threads per process (the blocks are small: one thread is usually fastest)",
+                            lambda n: n >= 1),
         "bath_reference": Key(str, "nrg", "-", "nrg | exact",
                               "how the bare-chain thermodynamics subtracted from the impurity run is computed: "
                               "an NRG run with the same truncation (errors cancel) or exact single-particle",
@@ -180,6 +183,7 @@ class RunSettings:
     beta_bar: float
     symmetry: str
     workers: int
+    blas_threads: int
     bath_reference: str
     flow_levels: int
 

@@ -124,6 +124,16 @@ def _model_block(spec: RunSpec, chain, bath):
 
 
 def solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResult:
+    """Run the engine and the observables for one twist z, with ``run.blas_threads`` BLAS threads.
+
+    See :func:`_solve_twist` for the parameters.
+    """
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(limits=spec.run.blas_threads):
+        return _solve_twist(spec, z, progress, bath)
+
+
+def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResult:
     """Run the engine and the observables for one twist z.
 
     Parameters

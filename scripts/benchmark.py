@@ -24,7 +24,7 @@ import sys
 import time
 
 
-def one_case(kept: int, symmetry: str, iterations: int, driver: str) -> dict:
+def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: int = 1) -> dict:
     import resource
 
     import numpy as np
@@ -43,9 +43,11 @@ def one_case(kept: int, symmetry: str, iterations: int, driver: str) -> dict:
     blk = sym.from_explicit(anderson_block(-0.05, 0.1, V))
     steps = [Step(n, (float(chain.onsite[n]),), ((V if n == 0 else float(chain.hopping[n - 1])),),
                   energy_scale(n, Lam)) for n in range(iterations + 1)]
+    from threadpoolctl import threadpool_limits
     t0 = time.perf_counter()
-    res = run_chain(blk, -1, energy_scale(-1, Lam), sym, steps,
-                    EngineSettings(kept_states=kept, driver=driver, particle_hole_symmetric=True))
+    with threadpool_limits(limits=threads):
+        res = run_chain(blk, -1, energy_scale(-1, Lam), sym, steps,
+                        EngineSettings(kept_states=kept, driver=driver, particle_hole_symmetric=True))
     wall = time.perf_counter() - t0
     big = max(int(r.block_dims[0]) for r in res.records)
     return {"kept": kept, "symmetry": symmetry, "iterations": len(res.records), "wall": wall,
@@ -80,20 +82,22 @@ def main(argv=None):
     p.add_argument("--symmetry", nargs="+", default=["su2", "abelian"], choices=["su2", "abelian"])
     p.add_argument("--iterations", type=int, default=25)
     p.add_argument("--driver", default="evd", choices=["evd", "evr", "ev"])
+    p.add_argument("--threads", type=int, default=1, help="BLAS threads")
     p.add_argument("--no-kondo", action="store_true", help="skip the standard Kondo run")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     if a.case:
         kept, sym = a.case.split(":")
-        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver)))
+        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads)))
         return 0
-    print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}")
+    print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}, "
+          f"{a.threads} BLAS thread(s)")
     print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'wall/diag':>10} {'largest block':>14} {'peak MB':>8}")
     rows = {}
     for kept in a.kept:
         for sym in a.symmetry:
             out = subprocess.run([sys.executable, __file__, "--case", f"{kept}:{sym}", "--iterations",
-                                  str(a.iterations), "--driver", a.driver], capture_output=True, text=True)
+                                  str(a.iterations), "--driver", a.driver, "--threads", str(a.threads)], capture_output=True, text=True)
             if out.returncode != 0:
                 print(f"{kept:>6} {sym:>8} failed: {out.stderr.strip().splitlines()[-1]}")
                 continue
