@@ -1,0 +1,72 @@
+"""Regenerate docs/config.md from the config schema (nrgsolve.config.SCHEMA).
+
+    python scripts/make_docs.py
+
+The table part is exactly config.config_reference_markdown(); a test checks
+that docs/config.md contains it, so edit the schema, not the table.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from nrgsolve.config import config_reference_markdown  # noqa: E402
+
+INTRO = """# Config reference
+
+A run is described by one TOML file with the tables `[impurity]`, `[bath]`
+(physics), `[discretization]`, `[run]` (numerical approximation) and
+`[output]`; a sweep adds a `[sweep]` table.  Every key is optional and has
+the default below.  Unknown tables or keys, wrong types and out-of-range
+values stop the program before any numerics, with a one-line message naming
+the key and the allowed range (and a "did you mean" suggestion for typos).
+
+Units: energies and temperatures in units of the conduction half-bandwidth
+D (k_B = 1); `exchange` is the dimensionless ρJ with ρ = 1/(2D), positive
+for antiferromagnetic coupling; `hybridization` is Γ = πρV² at the Fermi
+level; `field` is the Zeeman energy h in H = −h S_z.
+
+Ready-made examples are in `configs/`.
+
+"""
+
+SWEEP = """
+
+## Sweeps
+
+`[sweep]` maps a parameter name written `"table.key"` to a list of values
+or to a range, and may name the output folder:
+
+```toml
+[sweep]
+"impurity.exchange" = [0.15, 0.2, 0.25]
+"impurity.interaction" = { start = 0.05, stop = 0.4, points = 4, spacing = "log" }
+folder = "my_sweep"      # default: <config name>_sweep, relative to the current folder
+```
+
+The points are the outer product of all lists (the last parameter varies
+fastest).  Every value is checked like the key itself.  `nrgsolve sweep`
+writes `point_0000.h5`, `point_0001.h5`, ... and `index.csv` (see
+[results.md](results.md)); each point file stores the resolved config of
+that point alone.
+"""
+
+
+def render() -> str:
+    """The full text of docs/config.md."""
+    return INTRO + "## Keys\n\n" + config_reference_markdown() + "\n" + SWEEP
+
+
+def main() -> int:
+    out = ROOT / "docs" / "config.md"
+    out.write_text(render(), encoding="utf-8")
+    print(f"wrote {out}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
