@@ -61,10 +61,22 @@ def render() -> str:
     return INTRO + "## Keys\n\n" + config_reference_markdown() + "\n" + SWEEP
 
 
+START, END = "<!-- config-reference-start -->", "<!-- config-reference-end -->"
+
+
+def render_readme(text: str) -> str:
+    """README text with the config table between the reference markers replaced."""
+    a, b = text.index(START) + len(START), text.index(END)
+    return text[:a] + "\n" + config_reference_markdown() + "\n" + text[b:]
+
+
 def main() -> int:
     out = ROOT / "docs" / "config.md"
     out.write_text(render(), encoding="utf-8")
     print(f"wrote {out}")
+    readme = ROOT / "README.md"
+    readme.write_text(render_readme(readme.read_text(encoding="utf-8")), encoding="utf-8")
+    print(f"updated the config table in {readme}")
     return 0
 
 

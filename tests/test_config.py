@@ -217,3 +217,9 @@ def test_every_key_rejects_values_of_a_wrong_type(table, data):
     assert tomllib.loads(text)[table][key] == bad          # valid TOML: the type is what is wrong
     with pytest.raises(ConfigError, match=re.escape(f"{table}.{key}: expected")):
         parse_config(text)
+
+
+def test_readme_carries_the_current_config_reference():
+    """The README's config reference table is the generated one (regenerate: python scripts/make_docs.py)."""
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    assert config_reference_markdown() in text, "README.md config table is stale: run python scripts/make_docs.py"
