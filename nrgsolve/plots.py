@@ -21,7 +21,7 @@ import numpy as np
 
 from .config import parse_config
 from .errors import NrgInputError
-from .store import StoredResult, atomic_path
+from .store import StoredResult, atomic_path, check_output_path
 
 __all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_thermo",
            "differing_parameters", "run_labels", "save_figure"]
@@ -314,14 +314,7 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
         raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
     targets = [png] + ([png.with_suffix(".pdf")] if pdf else [])
     for t in targets:
-        if t.is_dir():
-            raise NrgInputError(f"--output: {t} is a folder; give a file name ending in .png")
-        if t.exists() and not force:
-            raise NrgInputError(f"--output: {t} already exists; use --force to overwrite or choose another --output")
-    try:
-        png.parent.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise NrgInputError(f"--output: cannot create folder {png.parent} ({exc.strerror})") from None
+        check_output_path(t, force, name="--output", suffix=".png")
     managers = [atomic_path(t) for t in targets]
     temps = []
     try:

@@ -68,8 +68,18 @@ def _git_commit():
         return ""
 
 
-def check_output_path(path: str | Path, force: bool) -> Path:
+def check_output_path(path: str | Path, force: bool, name: str = "output", suffix: str = ".h5") -> Path:
     """Refuse an existing output file unless ``force``; create the folder.
+
+    Parameters
+    ----------
+    path : str or Path
+    force : bool
+        Allow overwriting an existing file.
+    name : str
+        The parameter named in messages (e.g. "output", "--output").
+    suffix : str
+        The file kind named in messages.
 
     Raises
     ------
@@ -78,20 +88,14 @@ def check_output_path(path: str | Path, force: bool) -> Path:
     """
     p = Path(path)
     if p.is_dir():
-        raise NrgInputError(f"output: {p} is a folder; give a file name ending in .h5")
+        raise NrgInputError(f"{name}: {p} is a folder; give a file name ending in {suffix}")
     if p.exists() and not force:
-        raise NrgInputError(f"output: {p} already exists; use --force to overwrite or choose another --output")
+        raise NrgInputError(f"{name}: {p} already exists; use --force to overwrite or choose another --output")
     try:
         p.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise NrgInputError(f"output: cannot create folder {p.parent} ({exc.strerror})") from None
+        raise NrgInputError(f"{name}: cannot create folder {p.parent} ({exc.strerror})") from None
     return p
-
-
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
 
 
 class atomic_path:
