@@ -21,6 +21,13 @@ Layout (units in each dataset's ``units`` attribute; see docs/results.md):
   ``kondo_temperature_crossover``, ``wilson_ratio``,
   ``lowest_temperature_reached`` (NaN means "not reached"), ``wall_seconds``,
   ``warnings``.
+* ``/spectral/`` (runs with a [spectral] table): ``omega`` (D), ``temperature`` (D),
+  ``A`` (temperatures × ω in su2 mode; spin × temperatures × ω, spin = up, down,
+  in the abelian mode; 1/D, per spin), ``occupation`` (⟨n_d⟩ at those
+  temperatures), optionally ``A_improved`` (same shape as ``A``) and
+  ``self_energy_real`` / ``self_energy_imag`` (D); attributes ``broadening``,
+  ``components``.  ``/transport/temperature`` (D) and ``/transport/conductance``
+  (2e²/h) when conductance temperatures were asked for.
 
 The file is written to a temporary name in the target folder and renamed, so
 an interrupted run never leaves a half-written file.
@@ -96,6 +103,12 @@ def check_output_path(path: str | Path, force: bool, name: str = "output", suffi
     except OSError as exc:
         raise NrgInputError(f"{name}: cannot create folder {p.parent} ({exc.strerror})") from None
     return p
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 class atomic_path:
@@ -210,7 +223,34 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
                 s.attrs[name] = np.nan if v is None else float(v)
             s.attrs["wall_seconds"] = float(result.wall_seconds)
             s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
+            _write_spectral(h, result)
     return target
+
+
+def _spin_first(a):
+    """(n_T, n_comp, n_ω) -> (n_T, n_ω) for one component, else (n_comp, n_T, n_ω)."""
+    a = np.asarray(a)
+    return a[:, 0] if a.shape[1] == 1 else np.moveaxis(a, 1, 0)
+
+
+def _write_spectral(h, result):
+    sp, tr = getattr(result, "spectral", None), getattr(result, "transport", None)
+    if sp is not None:
+        g = h.create_group("spectral")
+        g.attrs["broadening"] = float(sp.broadening)
+        g.attrs["components"] = ", ".join(sp.components)
+        _ds(g, "omega", sp.omega, "D")
+        _ds(g, "temperature", sp.temperatures, "D")
+        _ds(g, "A", _spin_first(sp.spectral), "1/D")
+        _ds(g, "occupation", sp.occupation, "electrons")
+        if sp.improved is not None:
+            _ds(g, "A_improved", _spin_first(sp.improved), "1/D")
+            _ds(g, "self_energy_real", _spin_first(sp.self_energy.real), "D")
+            _ds(g, "self_energy_imag", _spin_first(sp.self_energy.imag), "D")
+    if tr is not None:
+        g = h.create_group("transport")
+        _ds(g, "temperature", tr.temperature, "D")
+        _ds(g, "conductance", tr.conductance, "2e^2/h")
 
 
 @dataclass
@@ -226,6 +266,8 @@ class StoredResult:
     twists: list
     summary: dict
     warnings: list = field(default_factory=list)
+    spectral: dict = field(default_factory=dict)     # /spectral datasets (empty when absent)
+    transport: dict = field(default_factory=dict)    # /transport datasets (empty when absent)
 
 
 def _group_dict(g):
@@ -258,8 +300,12 @@ def read_result(path: str | Path) -> StoredResult:
                                "thermodynamics": _group_dict(gk["thermodynamics"])})
             summary = {k: v for k, v in h["summary"].attrs.items() if k != "warnings"}
             warns = [w.decode() for w in h["summary"].attrs.get("warnings", []) if w]
+            spectral = _group_dict(h["spectral"]) if "spectral" in h else {}
+            if "spectral" in h:
+                spectral.update({k: (v.decode() if isinstance(v, bytes) else v) for k, v in h["spectral"].attrs.items()})
+            transport = _group_dict(h["transport"]) if "transport" in h else {}
             return StoredResult(str(p), attrs, _group_dict(h["chain"]), _group_dict(h["flow"]),
                                 _group_dict(h["diagnostics"]), _group_dict(h["thermodynamics"]),
-                                twists, summary, warns)
+                                twists, summary, warns, spectral=spectral, transport=transport)
     except (OSError, KeyError) as exc:
         raise NrgInputError(f"{p}: cannot read result file ({exc})") from None
