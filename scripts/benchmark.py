@@ -24,7 +24,8 @@ import sys
 import time
 
 
-def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: int = 1) -> dict:
+def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: int = 1,
+             observables: bool = True) -> dict:
     import resource
 
     import numpy as np
@@ -41,6 +42,8 @@ def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: in
     V = np.sqrt(0.01 * chain.coupling_sq)
     sym = make_symmetry(symmetry)
     blk = sym.from_explicit(anderson_block(-0.05, 0.1, V))
+    if not observables:        # engine alone: no impurity operators (n_d, double occupancy) carried along
+        blk.scalars = {}
     steps = [Step(n, (float(chain.onsite[n]),), ((V if n == 0 else float(chain.hopping[n - 1])),),
                   energy_scale(n, Lam)) for n in range(iterations + 1)]
     from threadpoolctl import threadpool_limits
@@ -83,21 +86,24 @@ def main(argv=None):
     p.add_argument("--iterations", type=int, default=25)
     p.add_argument("--driver", default="evd", choices=["evd", "evr", "ev"])
     p.add_argument("--threads", type=int, default=1, help="BLAS threads")
+    p.add_argument("--no-observables", action="store_true",
+                   help="do not carry the impurity operators n_d and n_d↑n_d↓ (engine cost alone)")
     p.add_argument("--no-kondo", action="store_true", help="skip the standard Kondo run")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     if a.case:
         kept, sym = a.case.split(":")
-        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads)))
+        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads, not a.no_observables)))
         return 0
     print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}, "
-          f"{a.threads} BLAS thread(s)")
+          f"{a.threads} BLAS thread(s), impurity observables {'off' if a.no_observables else 'on'}")
     print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'wall/diag':>10} {'largest block':>14} {'peak MB':>8}")
     rows = {}
     for kept in a.kept:
         for sym in a.symmetry:
             out = subprocess.run([sys.executable, __file__, "--case", f"{kept}:{sym}", "--iterations",
-                                  str(a.iterations), "--driver", a.driver, "--threads", str(a.threads)], capture_output=True, text=True)
+                                  str(a.iterations), "--driver", a.driver, "--threads", str(a.threads)]
+                                 + (["--no-observables"] if a.no_observables else []), capture_output=True, text=True)
             if out.returncode != 0:
                 print(f"{kept:>6} {sym:>8} failed: {out.stderr.strip().splitlines()[-1]}")
                 continue
