@@ -13,7 +13,8 @@ from pathlib import Path
 
 from .errors import NrgInputError
 
-__all__ = ["add_commands", "cmd_sweep", "cmd_plot_flow", "cmd_plot_thermo", "cmd_inspect"]
+__all__ = ["add_commands", "cmd_sweep", "cmd_plot_flow", "cmd_plot_thermo", "cmd_inspect", "cmd_plot_spectral",
+           "cmd_plot_conductance"]
 
 
 def _positive_int(name):
@@ -92,6 +93,36 @@ def cmd_plot_thermo(args) -> int:
     return 0
 
 
+def cmd_plot_spectral(args) -> int:
+    """Draw the impurity spectral function A(ω) of one result file."""
+    from .plots import plot_spectral, save_figure
+    from .store import read_result
+
+    stored = read_result(args.file)
+    png = Path(args.output) if args.output else _default_png(f"{Path(args.file).stem}_spectral.png")
+    _check_png(png, args.force)
+    fig = plot_spectral(stored, improved=True if args.improved else None, xscale=args.xscale)
+    written = save_figure(fig, png, force=args.force)
+    if not args.quiet:
+        print("wrote " + ", ".join(str(p) for p in written))
+    return 0
+
+
+def cmd_plot_conductance(args) -> int:
+    """Draw the linear conductance G(T) of one or more result files on one axis."""
+    from .plots import plot_conductance, save_figure
+    from .store import read_result
+
+    results = [read_result(f) for f in args.files]
+    png = Path(args.output) if args.output else _default_png("conductance.png")
+    _check_png(png, args.force)
+    fig = plot_conductance(results)
+    written = save_figure(fig, png, force=args.force)
+    if not args.quiet:
+        print("wrote " + ", ".join(str(p) for p in written))
+    return 0
+
+
 def _check_png(png: Path, force: bool):
     # fail before any drawing: a wrong name or an existing file is an input error
     if png.suffix.lower() != ".png":
@@ -125,7 +156,7 @@ def add_commands(subparsers) -> None:
     s.set_defaults(func=cmd_sweep)
 
     p = subparsers.add_parser("plot", help="draw figures from result files")
-    kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo}", parser_class=type(p))
+    kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo,spectral,conductance}", parser_class=type(p))
     kinds.required = True
     f = kinds.add_parser("flow", help="energy-level flow of one run (even and odd iterations)")
     f.add_argument("file", help="result file (.h5)")
@@ -146,6 +177,23 @@ def add_commands(subparsers) -> None:
     t.add_argument("--force", action="store_true", help="overwrite existing images")
     t.add_argument("--quiet", "-q", action="store_true", help="print nothing")
     t.set_defaults(func=cmd_plot_thermo)
+    a = kinds.add_parser("spectral", help="impurity spectral function A(omega) of one run ([spectral] table)")
+    a.add_argument("file", help="result file (.h5)")
+    a.add_argument("--xscale", choices=("symlog", "linear"), default="symlog",
+                   help="frequency axis (default symlog)")
+    a.add_argument("--improved", action="store_true", help="draw the self-energy improved estimate (must be stored)")
+    a.add_argument("--output", "-o", metavar="PNG", help="image file (default: <file name>_spectral.png here; "
+                                                          "a PDF is written beside it)")
+    a.add_argument("--force", action="store_true", help="overwrite existing images")
+    a.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    a.set_defaults(func=cmd_plot_spectral)
+    g = kinds.add_parser("conductance", help="linear conductance G(T) of one or more runs")
+    g.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
+    g.add_argument("--output", "-o", metavar="PNG", help="image file (default: conductance.png here; "
+                                                          "a PDF is written beside it)")
+    g.add_argument("--force", action="store_true", help="overwrite existing images")
+    g.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    g.set_defaults(func=cmd_plot_conductance)
 
     i = subparsers.add_parser("inspect", help="show provenance, config, summary and diagnostics of a result file")
     i.add_argument("file", help="result file (.h5)")

@@ -25,7 +25,7 @@ from .errors import ConfigError
 
 __all__ = [
     "SCHEMA", "RunSpec", "ImpuritySpec", "BathSpec", "DiscretizationSpec", "RunSettings",
-    "OutputSpec", "SweepSpec", "parse_config", "load_config", "config_reference_markdown",
+    "OutputSpec", "SweepSpec", "SpectralSpec", "parse_config", "load_config", "config_reference_markdown",
     "MODELS",
 ]
 
@@ -46,6 +46,7 @@ class Key:
     meaning: str
     check: Callable[[Any], bool] | None = None
     choices: tuple | None = None
+    convert: Callable[[Any], Any] | None = None   # applied after the checks (e.g. list -> tuple)
 
 
 def _finite(x):
@@ -53,6 +54,29 @@ def _finite(x):
 
 
 NUM = (int, float)
+
+
+def _number_list(v, low, allow_low):
+    return (isinstance(v, list) and 1 <= len(v) <= 64
+            and all(_finite(x) and (x >= low if allow_low else x > low) for x in v))
+
+
+def _log_range(v):
+    """A { start, stop, points } table of a logarithmic temperature range."""
+    if not isinstance(v, dict) or set(v) != {"start", "stop", "points"}:
+        return False
+    a, b, n = v["start"], v["stop"], v["points"]
+    return (_finite(a) and _finite(b) and 0 < a < b and isinstance(n, int) and not isinstance(n, bool)
+            and 2 <= n <= 400)
+
+
+def _temperature_tuple(v):
+    if isinstance(v, dict):
+        a, b, n = float(v["start"]), float(v["stop"]), int(v["points"])
+        return tuple(a * (b / a) ** (i / (n - 1)) for i in range(n))
+    return tuple(float(x) for x in v)
+
+
 # The one place where every default lives.
 SCHEMA: dict[str, dict[str, Key]] = {
     "impurity": {
@@ -117,6 +141,27 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               choices=("nrg", "exact")),
         "flow_levels": Key(int, 40, "levels", ">= 1", "lowest levels per iteration stored for the flow",
                            lambda n: n >= 1),
+    },
+    "spectral": {
+        "temperatures": Key(list, None, "D", "list of 1 to 64 numbers >= 0 and < half_bandwidth (0: ground state)",
+                            "temperatures of the impurity spectral function A(ω, T); no spectral pass when absent "
+                            "(Anderson and resonant-level models)",
+                            lambda v: _number_list(v, 0.0, True), convert=_temperature_tuple),
+        "broadening": Key(NUM, 0.6, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
+                          lambda b: _finite(b) and 0 < b <= 2),
+        "points_per_decade": Key(int, 25, "points", ">= 2 and <= 400",
+                                 "frequency points per decade of |ω| of the stored spectra", lambda n: 2 <= n <= 400),
+        "self_energy": Key(bool, False, "-", "true | false",
+                           "also store the improved estimate from Σ = U F/G (Bulla, Hewson, Pruschke 1998)"),
+        "conductance_temperatures": Key((list, dict), None, "D",
+                                        "list of 1 to 64 numbers > 0 and < half_bandwidth, or "
+                                        "{ start, stop, points } (log spacing, 2 to 400 points)",
+                                        "temperatures of the linear conductance G(T) through the dot",
+                                        lambda v: _number_list(v, 0.0, False) or _log_range(v),
+                                        convert=_temperature_tuple),
+        "memory_budget": Key(NUM, 1.0, "GB", "> 0",
+                             "eigenvectors kept in memory for the spectral pass; the rest goes to a temporary file",
+                             lambda m: _finite(m) and m > 0),
     },
     "output": {
         "file": Key(str, None, "path", "writable path ending in .h5 (default: <config name>.h5 in the current folder)",
@@ -189,6 +234,23 @@ class RunSettings:
 
 
 @dataclass(frozen=True)
+class SpectralSpec:
+    """Numerical request for spectral functions and conductance (temperatures in units of D)."""
+
+    temperatures: tuple | None
+    broadening: float
+    points_per_decade: int
+    self_energy: bool
+    conductance_temperatures: tuple | None
+    memory_budget: float
+
+    @property
+    def requested(self) -> bool:
+        """True when a spectral pass is wanted (spectral or conductance temperatures given)."""
+        return bool(self.temperatures) or bool(self.conductance_temperatures)
+
+
+@dataclass(frozen=True)
 class OutputSpec:
     file: str | None
 
@@ -214,6 +276,7 @@ class RunSpec:
     sweep: SweepSpec = field(default_factory=SweepSpec)
     config_text: str = ""
     config_path: str = ""
+    spectral: SpectralSpec | None = None
 
     def with_value(self, dotted: str, value) -> "RunSpec":
         """Return a copy with one parameter ``table.key`` replaced and re-validated."""
@@ -225,7 +288,7 @@ class RunSpec:
     def as_dict(self) -> dict:
         out = {}
         for f in fields(self):
-            if f.name in SCHEMA:
+            if f.name in SCHEMA and getattr(self, f.name) is not None:
                 sub = getattr(self, f.name)
                 out[f.name] = {g.name: getattr(sub, g.name) for g in fields(sub)}
         return out
@@ -243,6 +306,10 @@ def _type_name(kind):
         return "an integer"
     if kind is bool:
         return "true or false"
+    if kind is list:
+        return "a list of numbers"
+    if kind == (list, dict):
+        return "a list of numbers or a table { start, stop, points }"
     return "a string"
 
 
@@ -257,7 +324,11 @@ def _check_value(table, key, spec: Key, value):
     if spec.choices is not None and value not in spec.choices:
         raise ConfigError(f"{name}: got {value!r}; allowed: {spec.allowed}{_suggest(str(value), spec.choices)}")
     if spec.check is not None and not spec.check(value):
+        if isinstance(value, (list, dict)):
+            raise ConfigError(f"{name}: expected {spec.allowed}, got {value!r}")
         raise ConfigError(f"{name}: got {value!r}; allowed range: {spec.allowed}")
+    if spec.convert is not None:
+        return spec.convert(value)
     return float(value) if kind is NUM else value
 
 
@@ -361,6 +432,7 @@ def _build(values, text, path, sweep, check_cross) -> RunSpec:
         discretization=DiscretizationSpec(**values["discretization"]),
         run=RunSettings(**values["run"]),
         output=OutputSpec(**values["output"]),
+        spectral=SpectralSpec(**values["spectral"]) if "spectral" in values else None,
         sweep=sweep,
         config_text=text,
         config_path=path,
@@ -382,6 +454,17 @@ def _cross_checks(spec: RunSpec):
         raise ConfigError(f"bath.table: only allowed with bath.shape = \"table\" (got shape {bath.shape!r})")
     if run.lowest_temperature >= bath.half_bandwidth:
         raise ConfigError(f"run.lowest_temperature: got {run.lowest_temperature}; allowed range: > 0 and < half_bandwidth")
+    sp = spec.spectral
+    if sp is not None:
+        asked = "temperatures" if sp.temperatures else "conductance_temperatures"
+        if sp.requested and imp.model not in ("anderson", "resonant-level"):
+            raise ConfigError(f"spectral.{asked}: expected impurity.model = \"anderson\" or \"resonant-level\" "
+                              f"(spectra are computed for the d level), got {imp.model!r}")
+        for key in ("temperatures", "conductance_temperatures"):
+            ts = getattr(sp, key)
+            if ts and max(ts) >= bath.half_bandwidth:
+                raise ConfigError(f"spectral.{key}: expected temperatures < half_bandwidth ({bath.half_bandwidth}), "
+                                  f"got {max(ts)}")
     if spec.output.file is not None and not spec.output.file.endswith((".h5", ".hdf5")):
         raise ConfigError(f"output.file: got {spec.output.file!r}; allowed: a path ending in .h5")
 

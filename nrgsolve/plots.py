@@ -24,7 +24,7 @@ from .errors import NrgInputError
 from .store import StoredResult, atomic_path, check_output_path
 
 __all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_thermo",
-           "differing_parameters", "run_labels", "save_figure"]
+           "differing_parameters", "run_labels", "save_figure", "plot_spectral", "plot_conductance"]
 
 #: quantity name -> (dataset in /thermodynamics, axis label with units)
 THERMO_QUANTITIES = {
@@ -329,3 +329,117 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
     for m, _ in temps:
         m.__exit__(None, None, None)
     return targets
+
+
+def plot_spectral(result: StoredResult, improved: bool | None = None, xscale: str = "symlog", ax=None):
+    """Impurity spectral function A(ω) of a stored run, one curve per stored temperature.
+
+    Parameters
+    ----------
+    result : StoredResult
+        A run with a ``/spectral`` group (config table [spectral]).
+    improved : bool, optional
+        Draw the self-energy improved estimate (default: when stored).
+    xscale : {"symlog", "linear"}
+        Frequency axis: symmetric logarithmic (linear below the smallest stored |ω| × 10) or linear.
+    ax : Axes, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    NrgInputError
+        If the file holds no spectral function, or on an unknown ``xscale``.
+
+    Notes
+    -----
+    ω in units of D, A in 1/D per spin; in the abelian mode the spin-up curve
+    is solid and the spin-down curve dashed.
+    """
+    sp = result.spectral
+    if not sp or "A" not in sp:
+        raise NrgInputError(f"{result.path}: holds no /spectral/A; run with a [spectral] table "
+                            f"(e.g. temperatures = [0.0]) in the config")
+    if xscale not in ("symlog", "linear"):
+        raise NrgInputError(f"--xscale: got {xscale!r}; allowed: symlog, linear")
+    use_improved = ("A_improved" in sp) if improved is None else bool(improved)
+    if use_improved and "A_improved" not in sp:
+        raise NrgInputError(f"{result.path}: holds no improved estimate; run with spectral.self_energy = true")
+    om = np.asarray(sp["omega"], dtype=float)
+    temps = np.atleast_1d(np.asarray(sp["temperature"], dtype=float))
+    A = np.asarray(sp["A_improved" if use_improved else "A"], dtype=float)
+    spins = A[None] if A.ndim == 2 else A            # (n_spin, n_T, n_ω)
+    if ax is None:
+        fig, ax = new_figure()
+    else:
+        fig = ax.figure
+    styles = ["-", "--"]
+    for i, T in enumerate(temps):
+        color = f"C{i % 10}"
+        for k, a in enumerate(spins):
+            name = "" if len(spins) == 1 else (" ↑" if k == 0 else " ↓")
+            ax.plot(om, a[i], styles[k % 2], color=color, lw=1.3,
+                    label=(f"T = {T:.3g} D" if T > 0 else "T = 0") + name)
+    if xscale == "symlog":
+        pos = om[om > 0]
+        lin = float(10 * pos.min()) if pos.size else 1e-12
+        ax.set_xscale("symlog", linthresh=lin, linscale=0.5)
+        lo, hi = math.ceil(math.log10(lin)), 0
+        step = max(1, math.ceil((hi - lo + 1) / 5))
+        ks = list(range(hi, lo - 1, -step))
+        ticks = [-(10.0 ** k) for k in ks] + [0.0] + [10.0 ** k for k in reversed(ks)]
+        ax.set_xticks(ticks, [("$-10^{%d}$" % k) for k in ks] + ["0"] + [("$10^{%d}$" % k) for k in reversed(ks)])
+        ax.minorticks_off()
+    ax.set_xlim(-2.0, 2.0)
+    ax.set_xlabel(r"$\omega$  [$D$]")
+    ax.set_ylabel(r"$A(\omega)$  [$1/D$]" + (r"  (improved, $\Sigma = UF/G$)" if use_improved else ""))
+    ax.grid(alpha=0.25, which="both")
+    ax.legend(fontsize=8, frameon=False)
+    return fig
+
+
+def plot_conductance(results: list[StoredResult], labels: list[str] | None = None, ax=None):
+    """Linear conductance G(T)/(2e²/h) of one or more stored runs on a logarithmic T axis.
+
+    Parameters
+    ----------
+    results : list of StoredResult
+        Runs with a ``/transport`` group (spectral.conductance_temperatures).
+    labels : list of str, optional
+        Legend entries (default: :func:`run_labels`).
+    ax : Axes, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    NrgInputError
+        If no runs are given or a run holds no conductance.
+    """
+    if not results:
+        raise NrgInputError("plot conductance: give at least one result file")
+    for r in results:
+        if not r.transport or "conductance" not in r.transport:
+            raise NrgInputError(f"{r.path}: holds no /transport/conductance; run with "
+                                f"spectral.conductance_temperatures in the config")
+    labels = run_labels(results) if labels is None else list(labels)
+    if ax is None:
+        fig, ax = new_figure()
+    else:
+        fig = ax.figure
+    for r, lab in zip(results, labels):
+        T = np.asarray(r.transport["temperature"], dtype=float)
+        g = np.asarray(r.transport["conductance"], dtype=float)
+        ax.plot(T, g, "o-", ms=3, lw=1.3, label=lab)
+    ax.set_xscale("log")
+    ax.set_xlabel(r"$T$  [$D$]")
+    ax.set_ylabel(r"$G/(2e^2/h)$")
+    ax.set_ylim(bottom=0)
+    ax.grid(alpha=0.25, which="both")
+    if len(results) > 1 or labels[0]:
+        ax.legend(fontsize=8, frameon=False)
+    return fig

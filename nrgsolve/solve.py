@@ -17,7 +17,7 @@ from __future__ import annotations
 import math
 import os
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -48,6 +48,7 @@ class TwistResult:
     thermo: ThermoCurve
     diag_seconds: float
     total_seconds: float
+    spectral: object = None          # DiscreteSpectrum of the d level when [spectral] asks for it
 
 
 @dataclass(frozen=True)
@@ -60,6 +61,8 @@ class RunResult:
     summary: KondoSummary
     wall_seconds: float
     warnings: list = field(default_factory=list)
+    spectral: object = None          # SpectralCurves (z-averaged) when [spectral] asks for it
+    transport: object = None         # ConductanceCurve when spectral.conductance_temperatures is given
 
 
 def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
@@ -166,8 +169,18 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     settings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                               flow_levels=r.flow_levels,
                               particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
-    res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym, steps,
-                    settings, progress)
+    spectral = None
+    if _spectral_wanted(spec):
+        from .observables.spectral import spectral_run, impurity_operators
+        sp = spec.spectral
+        corr = (("G", "d", "d"), ("F", "dn", "d")) if sp.self_energy else (("G", "d", "d"),)
+        res, spectral = spectral_run(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym,
+                                     steps, settings, impurity_operators(sym, block, sp.self_energy),
+                                     _spectral_temperatures(sp), corr, memory_budget=sp.memory_budget * 1e9,
+                                     progress=progress)
+    else:
+        res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym, steps,
+                        settings, progress)
     bath_records = None
     diag = res.diag_seconds
     if r.bath_reference == "nrg":
@@ -187,7 +200,49 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     flow = flow_spectrum(res.records, r.flow_levels)
     return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),
                        coupling_sq=float(chain.coupling_sq), flow=flow, thermo=thermo,
-                       diag_seconds=diag, total_seconds=time.perf_counter() - t0)
+                       diag_seconds=diag, total_seconds=time.perf_counter() - t0, spectral=spectral)
+
+
+def _spectral_wanted(spec: RunSpec) -> bool:
+    sp = getattr(spec, "spectral", None)
+    return sp is not None and sp.requested and spec.impurity.model in ("anderson", "resonant-level")
+
+
+def _spectral_temperatures(sp) -> tuple:
+    """All temperatures of the backward pass: the spectral ones and the conductance ones, sorted."""
+    return tuple(sorted(set(sp.temperatures or ()) | set(sp.conductance_temperatures or ())))
+
+
+def _spectral_outputs(spec: RunSpec, results, bath):
+    """z-averaged spectra (with the improved estimate if asked for) and the conductance curve."""
+    from .observables.spectral import average_spectra, hybridization_function, improved_spectral_function
+    from .observables.transport import linear_conductance, ConductanceCurve
+    sp, imp = spec.spectral, spec.impurity
+    curves = average_spectra([t.spectral for t in results], sp.broadening, sp.points_per_decade)
+    if sp.self_energy:
+        delta = hybridization_function(bath, imp.hybridization, curves.omega)
+        levels = [imp.epsilon_d] if len(curves.components) == 1 else [imp.epsilon_d - 0.5 * imp.field,
+                                                                      imp.epsilon_d + 0.5 * imp.field]
+        impr, sigma = improved_spectral_function(curves.omega, curves.spectral, curves.correlator_f, levels,
+                                                 imp.U, delta)
+        curves = replace(curves, improved=impr, self_energy=sigma)
+    transport = None
+    if sp.conductance_temperatures:
+        temps = np.asarray(sp.conductance_temperatures, dtype=float)
+        idx = [int(np.flatnonzero(curves.temperatures == T)[0]) for T in temps]
+        gamma_w = imp.hybridization * bath.shape_function(curves.omega)
+        g = linear_conductance(curves.omega, curves.best[idx], temps, gamma_w)
+        transport = ConductanceCurve(temperature=temps, conductance=g)
+    if sp.temperatures:
+        keep = [int(np.flatnonzero(curves.temperatures == T)[0]) for T in sp.temperatures]
+        sub = lambda a: None if a is None else a[keep]
+        curves = replace(curves, temperatures=curves.temperatures[keep], spectral=curves.spectral[keep],
+                         occupation=curves.occupation[keep], gaussian_widths=curves.gaussian_widths[keep],
+                         correlator_f=sub(curves.correlator_f), improved=sub(curves.improved),
+                         self_energy=sub(curves.self_energy))
+    else:
+        curves = None
+    return curves, transport
 
 
 def _worker_init():
@@ -261,8 +316,10 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
     thermo = average_twists([t.thermo for t in results])
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
+    spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
-                     wall_seconds=time.perf_counter() - t0, warnings=warnings)
+                     wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
+                     transport=transport)
 
 
 def _drain(queue, progress, timeout):

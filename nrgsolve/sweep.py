@@ -136,6 +136,8 @@ def _toml_value(value) -> str:
     if isinstance(value, str):
         out = "".join(c if (c >= " " and c not in '"\\\x7f') else f"\\u{ord(c):04x}" for c in value)
         return f'"{out}"'
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
     raise TypeError(f"cannot write {type(value).__name__} to TOML")
 
 
