@@ -306,3 +306,23 @@ def test_malformed_scheduler_address_is_a_one_line_error(tmp_path, address):
     proc = run_cli("sweep", "grid.toml", "--scheduler", address, cwd=tmp_path)
     assert_one_line_error(proc, "--scheduler", address)
     assert sorted(listing(tmp_path)) == ["grid.toml"]
+
+
+def test_points_of_a_config_with_a_spectral_table_round_trip():
+    """List-valued keys ([spectral] temperatures, conductance range) survive writing a point's config back
+    to TOML: every point parses to the same spectral request (common practice, no source)."""
+    spec = parse_config("""
+[impurity]
+model = "anderson"
+[spectral]
+temperatures = [0.0, 1e-4]
+conductance_temperatures = { start = 1e-6, stop = 1e-3, points = 4 }
+[sweep]
+"impurity.interaction" = [0.05, 0.1]
+""")
+    points = sweep_points(spec)
+    assert len(points) == 2
+    for p in points:
+        back = parse_config(spec_to_toml(p.spec))
+        assert back.spectral == p.spec.spectral
+        assert back.impurity.interaction == p.spec.impurity.interaction
