@@ -17,7 +17,7 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
-from dataclasses import dataclass, field, fields, replace
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Callable
 

@@ -22,7 +22,6 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .config import RunSpec, resolve_table_path
-from .errors import NrgInputError
 from .bath import make_bath, read_table
 from .discretize import twists as twist_values
 from .chain import build_chain
@@ -245,12 +244,6 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     return curves, transport
 
 
-def _worker_init():
-    # one BLAS thread per worker process: the twists themselves are the parallelism
-    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ[var] = "1"
-
-
 def _solve_twist_queued(spec, z, queue):
     cb = (lambda n: queue.put(1)) if queue is not None else None
     return solve_twist(spec, z, cb)
@@ -295,24 +288,16 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
         import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
         ctx = mp.get_context("spawn")
-        saved = {v: os.environ.get(v) for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
-        _worker_init()
-        try:
-            import contextlib
-            with (ctx.Manager() if progress is not None else contextlib.nullcontext()) as manager:
-                queue = manager.Queue() if manager is not None else None
-                with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init) as pool:
-                    futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
-                    while not all(f.done() for f in futs):
-                        _drain(queue, progress, timeout=0.2)
-                    _drain(queue, progress, timeout=0.0)
-                    results = [f.result() for f in futs]
-        finally:
-            for v, old in saved.items():
-                if old is None:
-                    os.environ.pop(v, None)
-                else:
-                    os.environ[v] = old
+        import contextlib
+        # every twist pins its own BLAS threads (run.blas_threads) inside solve_twist
+        with (ctx.Manager() if progress is not None else contextlib.nullcontext()) as manager:
+            queue = manager.Queue() if manager is not None else None
+            with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+                futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
+                while not all(f.done() for f in futs):
+                    _drain(queue, progress, timeout=0.2)
+                _drain(queue, progress, timeout=0.0)
+                results = [f.result() for f in futs]
     thermo = average_twists([t.thermo for t in results])
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)

@@ -38,7 +38,6 @@ from __future__ import annotations
 import os
 import platform
 import subprocess
-import sys
 import tempfile
 from dataclasses import dataclass, field
 from datetime import datetime, timezone

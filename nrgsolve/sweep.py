@@ -34,7 +34,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from .config import SCHEMA, RunSpec, parse_config
+from .config import RunSpec, parse_config
 from .errors import NrgInputError
 from .solve import bath_from_spec, solve
 from .store import atomic_path, read_result, write_result
@@ -50,7 +50,6 @@ SUMMARY_COLUMNS = ("kondo_temperature_wilson", "kondo_temperature_crossover", "w
 #: Settings that do not change the result and are not compared when resuming.
 _NOT_COMPARED = {("output", "file"), ("run", "workers")}
 
-_BLAS_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 class WorkerLost(RuntimeError):
@@ -242,11 +241,6 @@ def _run_point(config_text: str, config_path: str, target: str) -> str:
     return str(write_result(result, target, force=True))
 
 
-def _blas_single_thread():
-    for var in _BLAS_VARIABLES:
-        os.environ[var] = "1"
-
-
 def _run_local(tasks, jobs: int, done: Callable[[int], None]):
     if jobs <= 1 or len(tasks) <= 1:
         for number, args in tasks:
@@ -258,28 +252,19 @@ def _run_local(tasks, jobs: int, done: Callable[[int], None]):
     from concurrent.futures.process import BrokenProcessPool
 
     ctx = mp.get_context("spawn")
-    saved = {v: os.environ.get(v) for v in _BLAS_VARIABLES}
-    _blas_single_thread()       # inherited by the spawned workers before numpy loads there
-    try:
-        with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx,
-                                 initializer=_blas_single_thread) as pool:
-            futures = {pool.submit(_run_point, *args): number for number, args in tasks}
-            try:
-                for fut in as_completed(futures):
-                    fut.result()
-                    done(futures[fut])
-            except BrokenProcessPool:
-                raise WorkerLost("a worker process died before finishing its point") from None
-            except BaseException:
-                for f in futures:
-                    f.cancel()
-                raise
-    finally:
-        for v, old in saved.items():
-            if old is None:
-                os.environ.pop(v, None)
-            else:
-                os.environ[v] = old
+    # each point runs its twists serially with run.blas_threads BLAS threads (solve_twist pins them)
+    with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx) as pool:
+        futures = {pool.submit(_run_point, *args): number for number, args in tasks}
+        try:
+            for fut in as_completed(futures):
+                fut.result()
+                done(futures[fut])
+        except BrokenProcessPool:
+            raise WorkerLost("a worker process died before finishing its point") from None
+        except BaseException:
+            for f in futures:
+                f.cancel()
+            raise
 
 
 def _import_distributed():

@@ -1,9 +1,7 @@
 """Shared helpers for the tests: Wilson's closed-form chain and exact free-fermion spectra."""
 
-import itertools
 
 import numpy as np
-import pytest
 
 
 def wilson_hopping(n, Lam, D=1.0):

@@ -4,7 +4,7 @@ import numpy as np
 
 from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
 from nrgsolve.engine.iterate import Step
-from nrgsolve.models import kondo_block, anderson_block, two_channel_kondo_block
+from nrgsolve.models import kondo_block, anderson_block
 
 from conftest import wilson_hopping, omega
 

@@ -1,7 +1,6 @@
 """Tests of nrgsolve.chain: star → Wilson chain in extended precision."""
 
 import math
-import time
 
 import mpmath
 import numpy as np

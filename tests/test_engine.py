@@ -3,11 +3,11 @@ spectra and the known fixed points of the Kondo and Anderson models."""
 
 import numpy as np
 import pytest
-from scipy.linalg import eigvalsh_tridiagonal, eigvalsh
+from scipy.linalg import eigvalsh_tridiagonal
 
 from nrgsolve.engine.reference import kondo_dense_spectrum, anderson_dense_spectrum
 from nrgsolve.errors import NrgInputError, NrgNumericalError
-from conftest import many_body_levels, expand_multiplets, omega, wilson_hopping
+from conftest import many_body_levels, expand_multiplets, omega
 from engine_helpers import run_kondo, run_anderson, closed_chain
 
 

@@ -20,7 +20,6 @@ coefficients, so new site types (several channels) need no new formulas.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from functools import lru_cache
 
 import numpy as np
 import scipy.linalg as sla
