@@ -63,64 +63,45 @@ def _default_png(name):
     return Path.cwd() / name
 
 
-def cmd_plot_flow(args) -> int:
-    """Draw the level flow of one result file."""
-    from .plots import plot_flow, save_figure
+def _plot(args, files, default_name, draw) -> int:
+    """Shared body of the plot commands: read the files, check the target, draw, save PNG and PDF."""
+    from .plots import save_figure
     from .store import read_result
 
-    stored = read_result(args.file)
-    png = Path(args.output) if args.output else _default_png(f"{Path(args.file).stem}_flow.png")
+    results = [read_result(f) for f in files]
+    png = Path(args.output) if args.output else _default_png(default_name)
     _check_png(png, args.force)
-    fig = plot_flow(stored, levels=args.levels)
-    written = save_figure(fig, png, force=args.force)
+    written = save_figure(draw(results), png, force=args.force)
     if not args.quiet:
         print("wrote " + ", ".join(str(p) for p in written))
     return 0
+
+
+def cmd_plot_flow(args) -> int:
+    """Draw the level flow of one result file."""
+    from .plots import plot_flow
+    return _plot(args, [args.file], f"{Path(args.file).stem}_flow.png",
+                 lambda r: plot_flow(r[0], levels=args.levels))
 
 
 def cmd_plot_thermo(args) -> int:
     """Draw T·χ, entropy or specific heat of one or more result files on one axis."""
-    from .plots import plot_thermo, save_figure
-    from .store import read_result
-
-    results = [read_result(f) for f in args.files]
-    png = Path(args.output) if args.output else _default_png(f"thermo_{args.quantity}.png")
-    _check_png(png, args.force)
-    fig = plot_thermo(results, quantity=args.quantity, scale=args.scale)
-    written = save_figure(fig, png, force=args.force)
-    if not args.quiet:
-        print("wrote " + ", ".join(str(p) for p in written))
-    return 0
+    from .plots import plot_thermo
+    return _plot(args, args.files, f"thermo_{args.quantity}.png",
+                 lambda r: plot_thermo(r, quantity=args.quantity, scale=args.scale))
 
 
 def cmd_plot_spectral(args) -> int:
     """Draw the impurity spectral function A(ω) of one result file."""
-    from .plots import plot_spectral, save_figure
-    from .store import read_result
-
-    stored = read_result(args.file)
-    png = Path(args.output) if args.output else _default_png(f"{Path(args.file).stem}_spectral.png")
-    _check_png(png, args.force)
-    fig = plot_spectral(stored, improved=True if args.improved else None, xscale=args.xscale)
-    written = save_figure(fig, png, force=args.force)
-    if not args.quiet:
-        print("wrote " + ", ".join(str(p) for p in written))
-    return 0
+    from .plots import plot_spectral
+    return _plot(args, [args.file], f"{Path(args.file).stem}_spectral.png",
+                 lambda r: plot_spectral(r[0], improved=True if args.improved else None, xscale=args.xscale))
 
 
 def cmd_plot_conductance(args) -> int:
     """Draw the linear conductance G(T) of one or more result files on one axis."""
-    from .plots import plot_conductance, save_figure
-    from .store import read_result
-
-    results = [read_result(f) for f in args.files]
-    png = Path(args.output) if args.output else _default_png("conductance.png")
-    _check_png(png, args.force)
-    fig = plot_conductance(results)
-    written = save_figure(fig, png, force=args.force)
-    if not args.quiet:
-        print("wrote " + ", ".join(str(p) for p in written))
-    return 0
+    from .plots import plot_conductance
+    return _plot(args, args.files, "conductance.png", plot_conductance)
 
 
 def _check_png(png: Path, force: bool):
