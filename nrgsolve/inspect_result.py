@@ -16,12 +16,11 @@ import numpy as np
 
 from .config import parse_config
 from .errors import NrgInputError
+from .solve import DISCARDED_WEIGHT_LIMIT
 from .store import StoredResult
 
 __all__ = ["DISCARDED_WEIGHT_LIMIT", "LOW_TEMPERATURE_SLACK", "convergence", "derived_warnings", "describe"]
 
-#: Largest acceptable discarded thermal weight per iteration (fraction, dimensionless).
-DISCARDED_WEIGHT_LIMIT = 1e-3
 #: The lowest temperature counts as reached when it is at most this factor above the requested one.
 LOW_TEMPERATURE_SLACK = 1.5
 

@@ -8,6 +8,8 @@ import shutil
 import h5py
 import numpy as np
 import pytest
+
+from nrgsolve.solve import DISCARDED_WEIGHT_LIMIT
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 from cli_helpers import assert_one_line_error, listing, run_cli, tiny_kondo
@@ -92,9 +94,8 @@ def test_inspect_prints_what_the_run_stored(results):
     assert version in out
     if commit:
         assert commit in out
-    # the quick settings truncate hard; inspect says so on its own
-    if weight > 1e-3:
-        assert "truncation too aggressive" in out
+    # inspect derives the truncation warning from the stored weights, exactly when they pass the limit
+    assert ("truncation too aggressive" in out) == (weight > DISCARDED_WEIGHT_LIMIT)
 
 
 def test_inspect_derives_unreached_kondo_temperature(results):
@@ -269,3 +270,16 @@ def test_inspect_derives_lowest_temperature_not_reached(results, tmp_path):
     assert f"lowest temperature not reached: {reached:.3g} D > requested 1e-12 D" in proc.stdout
     original = run_cli("inspect", results / "k20.h5", cwd=tmp_path)
     assert "lowest temperature not reached" not in original.stdout
+
+
+def test_hard_truncation_is_flagged_by_run_and_inspect(tmp_path):
+    """30 kept states at Λ = 3 discard far more than DISCARDED_WEIGHT_LIMIT of the thermal weight: the run
+    stores a warning and inspect derives it (common practice, no source)."""
+    (tmp_path / "hard.toml").write_text(tiny_kondo(0.2).replace("kept_states = ", "kept_states = 30 #"))
+    proc = run_cli("run", "hard.toml", "--output", "hard.h5", cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "truncation may be too aggressive" in proc.stdout
+    with h5py.File(tmp_path / "hard.h5") as h:
+        assert float(np.max(h["diagnostics/discarded_weight"][()])) > DISCARDED_WEIGHT_LIMIT
+    out = run_cli("inspect", tmp_path / "hard.h5", cwd=tmp_path).stdout
+    assert "truncation too aggressive" in out
