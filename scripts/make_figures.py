@@ -8,7 +8,9 @@ Writes (PNG only, small):
 * ``results/demo_T_chi.png``, ``results/demo_entropy.png``: T·χ_imp and S_imp
   of the single-run demo configs;
 * ``results/sweep_exchange_T_chi.png``: the configs/sweep_exchange.toml points
-  on the T/T_K axis.
+  on the T/T_K axis;
+* ``results/anderson_spectral.png``, ``results/anderson_conductance.png``: A(ω, T)
+  and G(T) of configs/anderson_spectral.toml.
 
 The result files go to a temporary folder (or ``--data``); also regenerates
 docs/config.md.  Every figure is drawn from the stored files, like the
@@ -26,7 +28,7 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from nrgsolve.config import load_config  # noqa: E402
-from nrgsolve.plots import plot_flow, plot_thermo, save_figure  # noqa: E402
+from nrgsolve.plots import plot_conductance, plot_flow, plot_spectral, plot_thermo, save_figure  # noqa: E402
 from nrgsolve.solve import solve  # noqa: E402
 from nrgsolve.store import read_result, write_result  # noqa: E402
 from nrgsolve.sweep import run_sweep  # noqa: E402
@@ -69,6 +71,11 @@ def main(argv=None) -> int:
                                pdf=False)
         written += save_figure(plot_thermo(runs, "entropy", labels=labels), out / "demo_entropy.png", force=True,
                                pdf=False)
+        spectral = read_result(write_result(solve(_spec("anderson_spectral", args.kept_states)),
+                                            data / "anderson_spectral.h5", force=True))
+        written += save_figure(plot_spectral(spectral), out / "anderson_spectral.png", force=True, pdf=False)
+        written += save_figure(plot_conductance([spectral], labels=["U/Γ = 10"]), out / "anderson_conductance.png",
+                               force=True, pdf=False)
         sweep = _spec("sweep_exchange", args.kept_states)
         outcome = run_sweep(sweep, data / "sweep_exchange", jobs=args.jobs, force=True)
         points = [read_result(outcome.folder / r["file"]) for r in outcome.rows]
