@@ -150,8 +150,10 @@ def add_commands(subparsers) -> None:
     f.set_defaults(func=cmd_plot_flow)
     t = kinds.add_parser("thermo", help="impurity thermodynamics of one or more runs on a log-T axis")
     t.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
-    t.add_argument("--quantity", choices=("T_chi", "entropy", "heat"), default="T_chi",
-                   help="T·χ_imp, S_imp or C_imp (default T_chi)")
+    from .plots import THERMO_QUANTITIES
+    t.add_argument("--quantity", choices=tuple(THERMO_QUANTITIES), default="T_chi",
+                   help="T·χ_imp, S_imp, C_imp, or the impurity averages M = ⟨S_z⟩ (abelian runs), ⟨n_d⟩, "
+                        "⟨n_d↑n_d↓⟩ (Anderson runs) (default T_chi)")
     t.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
     t.add_argument("--output", "-o", metavar="PNG", help="image file (default: thermo_<quantity>.png here; "
                                                           "a PDF is written beside it)")

@@ -31,6 +31,9 @@ THERMO_QUANTITIES = {
     "T_chi": ("T_chi_imp", r"$T\chi_\mathrm{imp}$  [$(g\mu_B)^2/k_B$]"),
     "entropy": ("S_imp", r"$S_\mathrm{imp}$  [$k_B$]"),
     "heat": ("C_imp", r"$C_\mathrm{imp}$  [$k_B$]"),
+    "magnetization": ("impurity_sz", r"$M = \langle S_z^\mathrm{imp} \rangle$  [$g\mu_B$]"),
+    "occupation": ("occupation", r"$\langle n_d \rangle$"),
+    "double_occupancy": ("double_occupancy", r"$\langle n_{d\uparrow} n_{d\downarrow} \rangle$"),
 }
 
 #: Short legend names of config parameters (others are shown as ``table.key``).
@@ -235,7 +238,7 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
     ----------
     results : list of StoredResult
         Stored runs (their z-averaged ``/thermodynamics``).
-    quantity : {"T_chi", "entropy", "heat"}
+    quantity : {"T_chi", "entropy", "heat", "magnetization", "occupation", "double_occupancy"}
         T·χ_imp in (g μ_B)²/k_B, S_imp in k_B, or C_imp in k_B.
     scale : {None, "kondo"}
         ``None``: T in units of D; ``"kondo"``: T/T_K with the stored

@@ -162,3 +162,28 @@ def test_legend_uses_file_names_when_too_many_parameters_differ(stored, tmp_path
     r = _store(tmp_path, "many", other)
     assert len(differing_parameters([stored["k20"], r])) == 4
     assert run_labels([stored["k20"], r]) == ["k20", "many"]
+
+
+def test_thermo_draws_impurity_magnetization_of_a_field_run(tmp_path):
+    """An abelian run with a field stores M = ⟨S_z,imp⟩; `plot thermo --quantity magnetization` draws it
+    (positive for h > 0 with H = −h S_z), and a run without it is refused with a one-line error."""
+    text = """
+[impurity]
+model = "anderson"
+interaction = 0.1
+hybridization = 0.01
+field = 0.001
+[run]
+symmetry = "abelian"
+kept_states = 150
+lowest_temperature = 1e-5
+"""
+    stored = read_result(write_result(solve(parse_config(text), workers=1), tmp_path / "field.h5"))
+    fig = plot_thermo([stored], quantity="magnetization")
+    y = fig.axes[0].lines[0].get_ydata()
+    assert len(y) > 10 and y.min() > 0 and y.max() < 0.5
+    np.testing.assert_allclose(y, stored.thermodynamics["impurity_sz"][np.isfinite(stored.thermodynamics["impurity_sz"])])
+    no_field = read_result(write_result(solve(parse_config(text.replace('symmetry = "abelian"\n', '').replace(
+        "field = 0.001\n", "")), workers=1), tmp_path / "plain.h5"))
+    with pytest.raises(NrgInputError, match="impurity_sz"):
+        plot_thermo([no_field], quantity="magnetization")
