@@ -202,7 +202,7 @@ def test_run_refuses_to_overwrite_without_force(tmp_path):
     (["plot", "thermo", "fake.h5"], ["fake.h5"]),
     (["plot", "flow", "{k20}", "--levels", "0"], ["--levels", ">= 1"]),
     (["plot", "flow", "{k20}", "--output", "flow.jpg"], ["--output", ".png"]),
-    (["plot", "thermo", "{k20}", "--quantity", "magnetization"], ["--quantity"]),
+    (["plot", "thermo", "{k20}", "--quantity", "susceptibility"], ["--quantity"]),
     (["sweep", "{k20toml}"], ["no [sweep] table"]),
     (["sweep", "{k20toml}", "--jobs", "0"], ["--jobs", ">= 1"]),
 ])

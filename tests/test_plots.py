@@ -117,7 +117,7 @@ def test_thermo_on_the_kondo_scale_needs_a_kondo_temperature(stored):
     with pytest.raises(NrgInputError, match="ferro.h5.*no Kondo temperature"):
         plot_thermo([stored["k20"], stored["ferro"]], scale="kondo")
     with pytest.raises(NrgInputError, match="--quantity"):
-        plot_thermo([stored["k20"]], quantity="magnetization")
+        plot_thermo([stored["k20"]], quantity="susceptibility")
 
 
 def test_legend_names_the_parameter_that_differs(stored):
