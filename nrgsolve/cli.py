@@ -86,11 +86,8 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--force", action="store_true", help="overwrite an existing result file")
     r.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
     r.set_defaults(func=cmd_run)
-    try:
-        from . import cli_extra
-        cli_extra.add_commands(sub)
-    except ImportError:
-        pass
+    from . import cli_extra
+    cli_extra.add_commands(sub)
     return p
 
 
