@@ -104,6 +104,14 @@ def cmd_plot_conductance(args) -> int:
     return _plot(args, args.files, "conductance.png", plot_conductance)
 
 
+def _image_options(parser, default_name: str):
+    """The options every plot command shares: --output, --force, --quiet."""
+    parser.add_argument("--output", "-o", metavar="PNG",
+                        help=f"image file (default: {default_name} here; a PDF is written beside it)")
+    parser.add_argument("--force", action="store_true", help="overwrite existing images")
+    parser.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+
+
 def _check_png(png: Path, force: bool):
     # fail before any drawing: a wrong name or an existing file is an input error
     if png.suffix.lower() != ".png":
@@ -143,10 +151,7 @@ def add_commands(subparsers) -> None:
     f.add_argument("file", help="result file (.h5)")
     f.add_argument("--levels", type=_positive_int("--levels"), default=12,
                    help="lowest levels drawn per iteration (default 12)")
-    f.add_argument("--output", "-o", metavar="PNG", help="image file (default: <file name>_flow.png here; "
-                                                          "a PDF is written beside it)")
-    f.add_argument("--force", action="store_true", help="overwrite existing images")
-    f.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    _image_options(f, "<file name>_flow.png")
     f.set_defaults(func=cmd_plot_flow)
     t = kinds.add_parser("thermo", help="impurity thermodynamics of one or more runs on a log-T axis")
     t.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
@@ -155,27 +160,18 @@ def add_commands(subparsers) -> None:
                    help="T·χ_imp, S_imp, C_imp, or the impurity averages M = ⟨S_z⟩ (abelian runs), ⟨n_d⟩, "
                         "⟨n_d↑n_d↓⟩ (Anderson runs) (default T_chi)")
     t.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
-    t.add_argument("--output", "-o", metavar="PNG", help="image file (default: thermo_<quantity>.png here; "
-                                                          "a PDF is written beside it)")
-    t.add_argument("--force", action="store_true", help="overwrite existing images")
-    t.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    _image_options(t, "thermo_<quantity>.png")
     t.set_defaults(func=cmd_plot_thermo)
     a = kinds.add_parser("spectral", help="impurity spectral function A(omega) of one run ([spectral] table)")
     a.add_argument("file", help="result file (.h5)")
     a.add_argument("--xscale", choices=("symlog", "linear"), default="symlog",
                    help="frequency axis (default symlog)")
     a.add_argument("--improved", action="store_true", help="draw the self-energy improved estimate (must be stored)")
-    a.add_argument("--output", "-o", metavar="PNG", help="image file (default: <file name>_spectral.png here; "
-                                                          "a PDF is written beside it)")
-    a.add_argument("--force", action="store_true", help="overwrite existing images")
-    a.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    _image_options(a, "<file name>_spectral.png")
     a.set_defaults(func=cmd_plot_spectral)
     g = kinds.add_parser("conductance", help="linear conductance G(T) of one or more runs")
     g.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
-    g.add_argument("--output", "-o", metavar="PNG", help="image file (default: conductance.png here; "
-                                                          "a PDF is written beside it)")
-    g.add_argument("--force", action="store_true", help="overwrite existing images")
-    g.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+    _image_options(g, "conductance.png")
     g.set_defaults(func=cmd_plot_conductance)
 
     i = subparsers.add_parser("inspect", help="show provenance, config, summary and diagnostics of a result file")

@@ -219,18 +219,13 @@ def _stored_matches(stored, point: SweepPoint) -> bool:
 
 def _remove_stale_parts(folder: Path) -> list[Path]:
     removed = []
-    for p in folder.glob(".point_*.h5.*.part"):
-        try:
-            p.unlink()
-            removed.append(p)
-        except OSError:
-            pass
-    for p in folder.glob(".index.csv.*.part"):
-        try:
-            p.unlink()
-            removed.append(p)
-        except OSError:
-            pass
+    for pattern in (".point_*.h5.*.part", ".index.csv.*.part"):
+        for p in folder.glob(pattern):
+            try:
+                p.unlink()
+                removed.append(p)
+            except OSError:
+                pass
     return removed
 
 

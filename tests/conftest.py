@@ -38,3 +38,14 @@ def many_body_levels(single_particle, n_lowest=None, spinful=True):
 def expand_multiplets(energies, multiplicity):
     """Repeat every multiplet energy 2S+1 times, sorted."""
     return np.sort(np.repeat(np.asarray(energies), np.asarray(multiplicity, dtype=int)))
+
+
+def assert_same_levels(su2_result, abelian_result, n_max):
+    """Iteration by iteration: su2 multiplets expanded by 2S+1 equal the abelian levels (lowest n_max, 1e-8),
+    and both modes keep the same number of states."""
+    for a, b in zip(su2_result.records, abelian_result.records):
+        lev_a = expand_multiplets(a.energies, a.multiplicity)
+        lev_b = np.sort(b.energies)
+        n = min(len(lev_a), len(lev_b), n_max)
+        np.testing.assert_allclose(lev_a[:n], lev_b[:n], atol=1e-8)
+        assert a.kept_states == b.kept_states

@@ -7,7 +7,7 @@ from scipy.linalg import eigvalsh_tridiagonal
 
 from nrgsolve.engine.reference import kondo_dense_spectrum, anderson_dense_spectrum
 from nrgsolve.errors import NrgInputError, NrgNumericalError
-from conftest import many_body_levels, expand_multiplets, omega
+from conftest import many_body_levels, expand_multiplets, omega, assert_same_levels
 from engine_helpers import run_kondo, run_anderson, closed_chain
 
 
@@ -96,12 +96,7 @@ def test_su2_and_abelian_give_the_same_levels(model):
             runs[sym] = run_kondo(0.15, 12, kept=200, symmetry=sym)[0]
         else:
             runs[sym] = run_anderson(-0.1, 0.2, 0.02, 12, kept=200, symmetry=sym)[0]
-    for a, b in zip(runs["su2"].records, runs["abelian"].records):
-        lev_a = expand_multiplets(a.energies, a.multiplicity)
-        lev_b = np.sort(b.energies)
-        n = min(len(lev_a), len(lev_b), 150)
-        np.testing.assert_allclose(lev_a[:n], lev_b[:n], atol=1e-8)
-        assert a.kept_states == b.kept_states
+    assert_same_levels(runs["su2"], runs["abelian"], 150)
 
 
 def free_chain_levels(N, Lam, first_site=0, n_lowest=40):

@@ -23,7 +23,7 @@ from nrgsolve.models import two_channel_kondo_block
 from nrgsolve.solve import solve
 from nrgsolve.store import read_result, write_result
 
-from conftest import expand_multiplets, omega, wilson_hopping
+from conftest import assert_same_levels, expand_multiplets, omega, wilson_hopping
 
 ROOT = Path(__file__).resolve().parent.parent
 CONFIGS = ROOT / "configs"
@@ -185,12 +185,7 @@ def test_two_channel_su2_and_abelian_agree_with_truncation():
         steps = [Step(n, (0.0, 0.0), (hop[n - 1],) * 2, omega(n, 2.0)) for n in range(1, 9)]
         runs[symmetry] = run_chain(sym.from_explicit(two_channel_kondo_block(0.4, 0.4)), 0, omega(0, 2.0),
                                    sym, steps, EngineSettings(kept_states=300))
-    for a, b in zip(runs["su2"].records, runs["abelian"].records):
-        lev_a = expand_multiplets(a.energies, a.multiplicity)
-        lev_b = np.sort(b.energies)
-        n = min(len(lev_a), len(lev_b), 200)
-        np.testing.assert_allclose(lev_a[:n], lev_b[:n], atol=1e-8)
-        assert a.kept_states == b.kept_states
+    assert_same_levels(runs["su2"], runs["abelian"], 200)
 
 
 # --------------------------------------------------------------------------------------------
