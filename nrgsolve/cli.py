@@ -40,9 +40,6 @@ def _output_path(spec, override):
     return Path.cwd() / (Path(spec.config_path).stem + ".h5")
 
 
-def _fmt(v, unit=""):
-    return "not reached" if v is None else f"{v:.5g}{unit}"
-
 
 def cmd_run(args) -> int:
     from .config import load_config
@@ -50,6 +47,8 @@ def cmd_run(args) -> int:
     from .store import write_result, check_output_path
 
     spec = load_config(args.config)
+    if args.error_estimate and not spec.run.error_estimate:
+        spec = spec.with_value("run.error_estimate", True)
     out = _output_path(spec, args.output)
     if not str(out).endswith((".h5", ".hdf5")):
         raise NrgInputError(f"--output: got {str(out)!r}; allowed: a path ending in .h5")
@@ -60,12 +59,20 @@ def cmd_run(args) -> int:
         result = solve(spec, progress=bar.update)
     path = write_result(result, out, force=args.force)
     if not args.quiet:
-        s = result.summary
-        print(f"model {spec.impurity.model}, Λ = {spec.discretization.Lambda:g}, "
-              f"{spec.discretization.twists} twist(s), kept states {spec.run.kept_states}, symmetry {spec.run.symmetry}")
-        print(f"Kondo temperature (Wilson, χ(0) = 0.4128/4T_K): {_fmt(s.kondo_temperature_wilson, ' D')}")
-        print(f"Kondo temperature (crossover, T_K χ(T_K) = 0.07): {_fmt(s.kondo_temperature_crossover, ' D')}")
-        print(f"Wilson ratio: {_fmt(s.wilson_ratio)}")
+        from .inspect_result import summary_lines
+        from .uncertainty import headline_values
+        from .observables.kondo_scale import WILSON_NUMBER
+        s, d = result.summary, spec.discretization
+        scheme = d.scheme + ((" with A_Λ correction" if d.wilson_correction else " without A_Λ correction")
+                             if d.scheme == "wilson" else "")
+        print(f"model {spec.impurity.model}, Λ = {d.Lambda:g} ({scheme}), {d.twists} twist(s), "
+              f"kept states {spec.run.kept_states}, symmetry {spec.run.symmetry}")
+        print(f"thermodynamics: {spec.run.thermodynamics}; Kondo temperature (Wilson): χ(0) = w/4T_K, "
+              f"w = {WILSON_NUMBER:.4f}; (crossover): T_K χ(T_K) = 0.07")
+        for line in summary_lines(headline_values(result), result.uncertainties):
+            print(line)
+        if result.checks:
+            print(f"uncertainties from two checking runs: {'; '.join(result.checks)}")
         print(f"lowest temperature reached: {s.lowest_temperature_reached:.3g} D")
         print(f"wall time: {result.wall_seconds:.1f} s")
         for w in result.warnings:
@@ -85,6 +92,9 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--output", "-o", help="result file (default: [output] file, or <config name>.h5 here)")
     r.add_argument("--force", action="store_true", help="overwrite an existing result file")
     r.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
+    r.add_argument("--error-estimate", action="store_true",
+                   help="also run with 1.5 x kept states and a coarser Λ and give each headline number an "
+                        "uncertainty (same as run.error_estimate = true; about 4 x the time)")
     r.set_defaults(func=cmd_run)
     from . import cli_extra
     cli_extra.add_commands(sub)

@@ -33,6 +33,7 @@ MODELS = ("kondo", "anderson", "resonant-level", "spin-kondo", "two-channel-kond
 BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
 SYMMETRIES = ("su2", "abelian")
+THERMO_METHODS = ("full-density-matrix", "conventional")
 
 
 @dataclass(frozen=True)
@@ -56,18 +57,18 @@ def _finite(x):
 NUM = (int, float)
 
 
-def _number_list(v, low, allow_low):
-    return (isinstance(v, list) and 1 <= len(v) <= 64
+def _number_list(v, low, allow_low, longest=64):
+    return (isinstance(v, list) and 1 <= len(v) <= longest
             and all(_finite(x) and (x >= low if allow_low else x > low) for x in v))
 
 
-def _log_range(v):
+def _log_range(v, most=400):
     """A { start, stop, points } table of a logarithmic temperature range."""
     if not isinstance(v, dict) or set(v) != {"start", "stop", "points"}:
         return False
     a, b, n = v["start"], v["stop"], v["points"]
     return (_finite(a) and _finite(b) and 0 < a < b and isinstance(n, int) and not isinstance(n, bool)
-            and 2 <= n <= 400)
+            and 2 <= n <= most)
 
 
 def _temperature_tuple(v):
@@ -113,9 +114,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
                       lambda x: _finite(x) and x > 1),
         "twists": Key(int, 1, "-", ">= 1", "number of evenly spaced twists z = k/n, k = 1..n (z-averaging)",
                       lambda n: n >= 1),
-        "scheme": Key(str, "wilson", "-", " | ".join(SCHEMES), "discretization scheme", choices=SCHEMES),
-        "wilson_correction": Key(bool, False, "-", "true | false",
-                                 "Wilson scheme: multiply the coupling by A_Λ (Wilson 1975)"),
+        "scheme": Key(str, "adaptive", "-", " | ".join(SCHEMES),
+                      "discretization scheme: \"adaptive\" reproduces Γ(ε) exactly after z-averaging "
+                      "(Campo & Oliveira 2005; Žitko & Pruschke 2009), so physical scales do not depend on Λ",
+                      choices=SCHEMES),
+        "wilson_correction": Key(bool, True, "-", "true | false (scheme \"wilson\" only)",
+                                 "Wilson scheme: multiply the coupling by A_Λ (Wilson 1975), which undoes the "
+                                 "discretization's reduction of the effective coupling"),
     },
     "run": {
         "kept_states": Key(int, 1000, "states", ">= 1 (counting 2S+1)",
@@ -126,8 +131,24 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "lowest_temperature": Key(NUM, 1e-8, "D", "> 0 and < half_bandwidth",
                                   "lowest temperature wanted; sets the chain length",
                                   lambda t: _finite(t) and t > 0),
-        "beta_bar": Key(NUM, 1.0, "-", "> 0", "T_N = ω_N / beta_bar: temperature evaluated at iteration N",
+        "beta_bar": Key(NUM, 1.0, "-", "> 0",
+                        "conventional thermodynamics: T_N = ω_N / beta_bar, the temperature evaluated at "
+                        "iteration N; also sets the temperature of the discarded-weight diagnostic",
                         lambda b: _finite(b) and b > 0),
+        "thermodynamics": Key(str, "full-density-matrix", "-", " | ".join(THERMO_METHODS),
+                              "how impurity thermodynamics is computed: from the complete basis of discarded "
+                              "states of every shell at any temperature (no beta_bar), or conventionally at "
+                              "T_N = ω_N/beta_bar of each iteration", choices=THERMO_METHODS),
+        "temperatures": Key((list, dict), None, "D",
+                            "{ start, stop, points } (log spacing, 2 to 2000 points) or a list of 1 to 2000 "
+                            "numbers > 0 and < half_bandwidth",
+                            "full-density-matrix thermodynamics: temperatures of the curves (default: from "
+                            "lowest_temperature up to half_bandwidth, 10 per decade)",
+                            lambda v: _number_list(v, 0.0, False, 2000) or _log_range(v, 2000),
+                            convert=_temperature_tuple),
+        "error_estimate": Key(bool, False, "-", "true | false",
+                              "repeat the run with 1.5 × kept_states and with a second Λ, and give every "
+                              "headline number an uncertainty (about 4 × the cost of a plain run)"),
         "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",
@@ -226,6 +247,9 @@ class RunSettings:
     energy_cutoff: float | None
     lowest_temperature: float
     beta_bar: float
+    thermodynamics: str
+    temperatures: tuple | None
+    error_estimate: bool
     symmetry: str
     workers: int
     blas_threads: int
@@ -452,6 +476,16 @@ def _cross_checks(spec: RunSpec):
         raise ConfigError("bath.table: shape \"table\" needs bath.table = \"path/to/file\"")
     if bath.shape != "table" and bath.table:
         raise ConfigError(f"bath.table: only allowed with bath.shape = \"table\" (got shape {bath.shape!r})")
+    d = spec.discretization
+    if d.scheme != "wilson" and d.wilson_correction and "wilson_correction" in _given(spec, "discretization"):
+        raise ConfigError(f"discretization.wilson_correction: only meaningful with scheme \"wilson\" "
+                          f"(got scheme {d.scheme!r}; the adaptive scheme needs no correction)")
+    if run.temperatures and max(run.temperatures) >= bath.half_bandwidth:
+        raise ConfigError(f"run.temperatures: expected temperatures < half_bandwidth ({bath.half_bandwidth}), "
+                          f"got {max(run.temperatures)}")
+    if run.temperatures and run.thermodynamics != "full-density-matrix":
+        raise ConfigError("run.temperatures: only used with run.thermodynamics = \"full-density-matrix\" "
+                          f"(got {run.thermodynamics!r}, whose temperatures are T_N = ω_N/beta_bar)")
     if run.lowest_temperature >= bath.half_bandwidth:
         raise ConfigError(f"run.lowest_temperature: got {run.lowest_temperature}; allowed range: > 0 and < half_bandwidth")
     sp = spec.spectral

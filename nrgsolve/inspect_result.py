@@ -18,8 +18,10 @@ from .config import parse_config
 from .errors import NrgInputError
 from .solve import DISCARDED_WEIGHT_LIMIT
 from .store import StoredResult
+from .uncertainty import HEADLINE, format_with_error
 
-__all__ = ["DISCARDED_WEIGHT_LIMIT", "LOW_TEMPERATURE_SLACK", "convergence", "derived_warnings", "describe"]
+__all__ = ["DISCARDED_WEIGHT_LIMIT", "LOW_TEMPERATURE_SLACK", "convergence", "derived_warnings", "describe",
+           "summary_lines", "method_lines"]
 
 #: The lowest temperature counts as reached when it is at most this factor above the requested one.
 LOW_TEMPERATURE_SLACK = 1.5
@@ -97,6 +99,50 @@ def derived_warnings(stored: StoredResult) -> list[str]:
     return out
 
 
+def summary_lines(values: dict, errors: dict | None = None) -> list[str]:
+    """Lines of the headline numbers, each with its uncertainty when there is one.
+
+    Parameters
+    ----------
+    values : dict
+        name → value (None or NaN: not reached), names as in :data:`nrgsolve.uncertainty.HEADLINE`.
+    errors : dict, optional
+        name → uncertainty (same unit).
+    """
+    errors = errors or {}
+    out = []
+    units = {"kondo_temperature_wilson": "D", "kondo_temperature_crossover": "D", "chi_zero": "(g μ_B)²/(k_B D)",
+             "gamma_zero": "k_B/D", "wilson_ratio": "", "T_chi_lowest": "(g μ_B)²/k_B", "entropy_lowest": "k_B"}
+    for name, meaning, _ in HEADLINE:
+        v = _number(values.get(name))
+        e = _number(errors.get(name))
+        shown = format_with_error(v if math.isfinite(v) else None, e if math.isfinite(e) else None, units[name])
+        out.append(f"{meaning}: {shown}")
+    return out
+
+
+def method_lines(attrs: dict) -> list[str]:
+    """Which discretization, thermodynamics and Wilson number a file used (format 1 files: the
+    defaults of that version, unless the stored config says otherwise)."""
+    if "thermodynamics_method" in attrs:
+        scheme = str(attrs.get("discretization_scheme"))
+        if scheme == "wilson":
+            scheme += " (with A_Λ correction)" if bool(attrs.get("wilson_correction")) else " (no A_Λ correction)"
+        return [f"discretization: {scheme}", f"thermodynamics: {attrs.get('thermodynamics_method')}",
+                f"Wilson number: {float(attrs.get('wilson_number')):.4f}"]
+    import tomllib
+    try:
+        raw = tomllib.loads(str(attrs.get("config_text", "")))
+    except tomllib.TOMLDecodeError:
+        raw = {}
+    d = raw.get("discretization", {}) if isinstance(raw.get("discretization"), dict) else {}
+    scheme = d.get("scheme", "wilson")
+    if scheme == "wilson":
+        scheme += " (with A_Λ correction)" if d.get("wilson_correction") is True else " (no A_Λ correction)"
+    return [f"discretization: {scheme} (file format 1)", "thermodynamics: conventional (file format 1)",
+            "Wilson number: 0.4128 (file format 1: Wilson's numerical estimate)"]
+
+
 def describe(stored: StoredResult) -> str:
     """Multi-line text: provenance, config, summary, convergence and warnings of a result file."""
     a = stored.attrs
@@ -116,10 +162,13 @@ def describe(stored: StoredResult) -> str:
              "config",
              *("  " + ln for ln in str(a.get("config_text", "")).rstrip("\n").splitlines()),
              "",
+             "method",
+             *("  " + ln for ln in method_lines(a)),
+             "",
              "summary",
-             f"  Kondo temperature (Wilson): {_fmt(s.get('kondo_temperature_wilson'), ' D')}",
-             f"  Kondo temperature (crossover): {_fmt(s.get('kondo_temperature_crossover'), ' D')}",
-             f"  Wilson ratio: {_fmt(s.get('wilson_ratio'))}",
+             *("  " + ln for ln in summary_lines(s, {k[:-len("_error")]: v for k, v in s.items()
+                                                     if k.endswith("_error")})),
+             *([f"  uncertainties from: {s['error_checks']}"] if s.get("error_checks") else []),
              f"  lowest temperature reached: {_fmt(s.get('lowest_temperature_reached'), ' D')}",
              f"  wall time: {_fmt(s.get('wall_seconds'), ' s')}",
              "",

@@ -30,6 +30,7 @@ from .engine.iterate import Step
 from .models import kondo_block, two_channel_kondo_block, anderson_block, bare_chain_block
 from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
                           ThermoCurve, KondoSummary, FlowSpectrum)
+from .observables.thermo_fdm import impurity_thermodynamics_fdm, default_temperatures
 
 __all__ = ["DISCARDED_WEIGHT_LIMIT", "TwistResult", "RunResult", "energy_scale", "sites_needed", "solve_twist", "solve",
            "bath_from_spec", "is_particle_hole_symmetric"]
@@ -62,6 +63,8 @@ class RunResult:
     warnings: list = field(default_factory=list)
     spectral: object = None          # SpectralCurves (z-averaged) when [spectral] asks for it
     transport: object = None         # ConductanceCurve when spectral.conductance_temperatures is given
+    uncertainties: dict = field(default_factory=dict)   # headline name -> uncertainty (run.error_estimate)
+    checks: tuple = ()               # descriptions of the checking runs behind the uncertainties
 
 
 def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
@@ -73,6 +76,31 @@ def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 
     """
     c = 0.5 * (1 + 1 / Lambda) if scheme == "wilson" else (1 - 1 / Lambda) / math.log(Lambda)
     return half_bandwidth * c * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
+
+
+#: Full-density-matrix thermodynamics: the chain runs until ω_N is this factor below the lowest
+#: temperature asked for, so that the last shell's level spacing is far below every temperature.
+FDM_SCALE_MARGIN = 10.0
+#: ... and warns when a run ends less than this factor below it.
+FDM_REACH_WARNING = 3.0
+
+
+def run_temperatures(spec: RunSpec, half_bandwidth: float | None = None) -> np.ndarray:
+    """Temperatures (units of D, ascending) of full-density-matrix thermodynamics: ``run.temperatures``,
+    or from ``run.lowest_temperature`` up to the half-bandwidth, 10 per decade."""
+    if spec.run.temperatures:
+        return np.array(sorted(spec.run.temperatures), dtype=float)
+    D = spec.bath.half_bandwidth if half_bandwidth is None else half_bandwidth
+    return default_temperatures(spec.run.lowest_temperature, D)
+
+
+def chain_sites(spec: RunSpec, z: float, half_bandwidth: float) -> int:
+    """Chain sites 0..N+1 of twist z: far enough for the lowest temperature the run must reach."""
+    d, r = spec.discretization, spec.run
+    if r.thermodynamics == "full-density-matrix":
+        low = min(r.lowest_temperature, float(run_temperatures(spec, half_bandwidth)[0]))
+        return sites_needed(low, d.Lambda, z, 1.0 / FDM_SCALE_MARGIN, half_bandwidth, d.scheme)
+    return sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, half_bandwidth, d.scheme)
 
 
 def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
@@ -152,8 +180,9 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     bath = bath_from_spec(spec) if bath is None else bath
     d, r = spec.discretization, spec.run
     D = bath.half_bandwidth
-    n_sites = sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, D, d.scheme)
-    chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme, wilson_correction=d.wilson_correction)
+    n_sites = chain_sites(spec, z, D)
+    chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme,
+                        wilson_correction=d.wilson_correction and d.scheme == "wilson")
     block, n_channels = _model_block(spec, chain, bath)
     sym = make_symmetry(r.symmetry, n_channels)
     initial = sym.from_explicit(block)
@@ -193,9 +222,14 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
         bres = run_chain(bare, 0, energy_scale(0, d.Lambda, z, D, d.scheme), sym, bsteps, bsettings, None)
         bath_records = bres.records
         diag += bres.diag_seconds
-    thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
-                                     abelian=(r.symmetry == "abelian"), n_channels=n_channels,
-                                     bath_records=bath_records)
+    if r.thermodynamics == "full-density-matrix":
+        thermo = impurity_thermodynamics_fdm(res.records, run_temperatures(spec, D), n_channels=n_channels,
+                                             abelian=(r.symmetry == "abelian"), bath_records=bath_records,
+                                             chain_onsite=chain.onsite, chain_hopping=chain.hopping)
+    else:
+        thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
+                                         abelian=(r.symmetry == "abelian"), n_channels=n_channels,
+                                         bath_records=bath_records)
     flow = flow_spectrum(res.records, r.flow_levels)
     return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),
                        coupling_sq=float(chain.coupling_sq), flow=flow, thermo=thermo,
@@ -250,16 +284,20 @@ def _solve_twist_queued(spec, z, queue):
 
 
 def n_iterations(spec: RunSpec, bath=None) -> int:
-    """Total iterations of a run over all twists (for progress bars)."""
+    """Total iterations of a run over all twists, with its checking runs (for progress bars)."""
     bath = bath_from_spec(spec) if bath is None else bath
-    d, r = spec.discretization, spec.run
     first = 0 if spec.impurity.model in ("anderson", "resonant-level") else 1
-    return sum(sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, bath.half_bandwidth, d.scheme) - first
-               for z in twist_values(d.twists))
+    specs = [spec]
+    if spec.run.error_estimate:
+        from .uncertainty import variant_specs
+        specs += [v for _, v in variant_specs(spec)]
+    return sum(chain_sites(s, z, bath.half_bandwidth) - first
+               for s in specs for z in twist_values(s.discretization.twists))
 
 
 def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult:
-    """Run every twist (in parallel processes when workers > 1) and average.
+    """Run every twist (in parallel processes when workers > 1) and average; with
+    ``run.error_estimate`` also the two checking runs of :mod:`nrgsolve.uncertainty`.
 
     Parameters
     ----------
@@ -273,6 +311,19 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
     -------
     RunResult
     """
+    t0 = time.perf_counter()
+    main = _solve_once(spec, progress, workers)
+    if not spec.run.error_estimate:
+        return main
+    from .uncertainty import variant_specs, uncertainties
+    checks = variant_specs(spec)
+    runs = [_solve_once(v, progress, workers) for _, v in checks]
+    return replace(main, uncertainties=uncertainties(main, runs), checks=tuple(label for label, _ in checks),
+                   wall_seconds=time.perf_counter() - t0)
+
+
+def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult:
+    """One run of every twist, averaged (see :func:`solve`)."""
     t0 = time.perf_counter()
     bath = bath_from_spec(spec)   # validates the table before any process starts
     zs = [float(z) for z in twist_values(spec.discretization.twists)]
@@ -335,7 +386,14 @@ def _warnings(spec, results, thermo, summary) -> list:
         out.append(f"truncation may be too aggressive: discarded thermal weight up to {worst:.1e} "
                    f"(increase run.kept_states or run.beta_bar)")
     low = float(thermo.temperature[0])
-    if low > 1.5 * spec.run.lowest_temperature:
+    if spec.run.thermodynamics == "full-density-matrix":
+        last = max(energy_scale(len(t.onsite) - 1, spec.discretization.Lambda, t.z, spec.bath.half_bandwidth,
+                                spec.discretization.scheme) for t in results)
+        if last > low / FDM_REACH_WARNING:
+            out.append(f"the chain ends at ω_N = {last:.3g} D, not far enough below the lowest temperature "
+                       f"{low:.3g} D (want ω_N ≤ T/{FDM_REACH_WARNING:g}): the lowest temperatures see the "
+                       f"finite chain")
+    elif low > 1.5 * spec.run.lowest_temperature:
         out.append(f"lowest temperature reached {low:.3g} D is above the requested {spec.run.lowest_temperature:.3g} D")
     if summary.kondo_temperature_crossover is None and spec.impurity.model != "two-channel-kondo":
         out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low enough)")

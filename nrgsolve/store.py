@@ -17,10 +17,13 @@ Layout (units in each dataset's ``units`` attribute; see docs/results.md):
   ``impurity_sz``, ...) — z-averaged.
 * ``/twists/<k>/`` with attribute ``z``: ``flow/``, ``diagnostics/`` and
   ``thermodynamics/`` of every twist.
+* root attributes (format 2): ``discretization_scheme``, ``wilson_correction``,
+  ``thermodynamics_method``, ``wilson_number``.
 * ``/summary`` attributes: ``kondo_temperature_wilson``,
-  ``kondo_temperature_crossover``, ``wilson_ratio``,
+  ``kondo_temperature_crossover``, ``wilson_ratio``, ``chi_zero``, ``gamma_zero``,
+  ``T_chi_lowest``, ``entropy_lowest``,
   ``lowest_temperature_reached`` (NaN means "not reached"), ``wall_seconds``,
-  ``warnings``.
+  ``warnings``; with error estimates ``<name>_error`` (same unit) and ``error_checks``.
 * ``/spectral/`` (runs with a [spectral] table): ``omega`` (D), ``temperature`` (D),
   ``A`` (temperatures × ω in su2 mode; spin × temperatures × ω, spin = up, down,
   in the abelian mode; 1/D, per spin), ``occupation`` (⟨n_d⟩ at those
@@ -46,13 +49,18 @@ from pathlib import Path
 import numpy as np
 
 from .errors import NrgInputError
+from .observables.kondo_scale import WILSON_NUMBER
+from .uncertainty import headline_values
 
 __all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path"]
 
-FORMAT_VERSION = 1
+#: 2: root attributes ``discretization_scheme``, ``thermodynamics_method``, ``wilson_number``; ``/summary``
+#: gains ``chi_zero``, ``gamma_zero``, ``T_chi_lowest``, ``entropy_lowest`` and ``<name>_error``;
+#: ``/thermodynamics/free_energy``.  Files of version 1 are still read.
+FORMAT_VERSION = 2
 
 THERMO_NAMES = {"T_chi": ("T_chi_imp", "(g mu_B)^2/k_B"), "entropy": ("S_imp", "k_B"), "heat": ("C_imp", "k_B")}
-EXTRA_UNITS = {"occupation": "electrons", "double_occupancy": "1", "impurity_sz": "hbar",
+EXTRA_UNITS = {"free_energy": "D", "occupation": "electrons", "double_occupancy": "1", "impurity_sz": "hbar",
                "total_sz": "hbar", "spin_correlation": "hbar^2"}
 
 
@@ -197,6 +205,10 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
             a["git_commit"] = _git_commit()
             a["symmetry"] = spec.run.symmetry
             a["model"] = spec.impurity.model
+            a["discretization_scheme"] = spec.discretization.scheme
+            a["wilson_correction"] = bool(spec.discretization.wilson_correction and spec.discretization.scheme == "wilson")
+            a["thermodynamics_method"] = spec.run.thermodynamics
+            a["wilson_number"] = WILSON_NUMBER
             tw = result.twists
             c = h.create_group("chain")
             _ds(c, "z", [t.z for t in tw], "1")
@@ -215,11 +227,14 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
                 _write_flow(gk, t.flow)
                 _write_thermo(gk, t.thermo)
             s = h.create_group("summary")
-            sm = result.summary
-            for name in ("kondo_temperature_wilson", "kondo_temperature_crossover", "wilson_ratio",
-                         "lowest_temperature_reached"):
-                v = getattr(sm, name)
+            values = headline_values(result)
+            values["lowest_temperature_reached"] = result.summary.lowest_temperature_reached
+            for name, v in values.items():
                 s.attrs[name] = np.nan if v is None else float(v)
+            for name, err in result.uncertainties.items():
+                s.attrs[f"{name}_error"] = np.nan if err is None else float(err)
+            if result.checks:
+                s.attrs["error_checks"] = "; ".join(result.checks)
             s.attrs["wall_seconds"] = float(result.wall_seconds)
             s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
             _write_spectral(h, result)

@@ -109,6 +109,7 @@ def free_chain_thermodynamics(onsite, hopping, temperature, n_channels=1):
     -------
     dict
         ``T_chi`` = Σ_k ½ f(1−f), ``entropy`` = 2Σ_k s(f), ``heat`` = 2Σ_k (βε)² f(1−f),
+        ``free_energy`` = −2T Σ_k ln(1 + e^{−ε_k/T}) (units of D, the empty chain at zero),
         each times ``n_channels``.
     """
     if len(onsite) == 1:
@@ -121,6 +122,7 @@ def free_chain_thermodynamics(onsite, hopping, temperature, n_channels=1):
     # entropy of one fermion level: ln(1+e^{-x}) + x f, written stably
     s = np.logaddexp(0.0, -x) + x * f
     return {"T_chi": n_channels * float(0.5 * ff.sum()),
+            "free_energy": n_channels * float(-2.0 * temperature * np.logaddexp(0.0, -x).sum()),
             "entropy": n_channels * float(2.0 * s.sum()),
             "heat": n_channels * float(2.0 * (x * x * ff).sum())}
 
@@ -224,6 +226,15 @@ def average_twists(curves, grid=None) -> ThermoCurve:
     grid : ndarray, optional
         Target temperatures; default :func:`temperature_grid`.
     """
+    if all(c.iteration is None for c in curves) and all(
+            len(c.temperature) == len(curves[0].temperature) and np.array_equal(c.temperature, curves[0].temperature)
+            for c in curves) and grid is None:
+        # curves already on one grid (full density matrix): a plain mean, nothing interpolated
+        keys = set.intersection(*[set(c.extra) for c in curves])
+        mean = lambda vals: np.mean(vals, axis=0)
+        return ThermoCurve(curves[0].temperature.copy(), mean([c.T_chi for c in curves]),
+                           mean([c.entropy for c in curves]), mean([c.heat for c in curves]),
+                           {k: mean([c.extra[k] for c in curves]) for k in sorted(keys)})
     if grid is None:
         grid = temperature_grid(curves)
     mean = lambda attr: np.mean([_smooth(grid, c, getattr(c, attr)) for c in curves], axis=0)
