@@ -40,7 +40,6 @@ def _output_path(spec, override):
     return Path.cwd() / (Path(spec.config_path).stem + ".h5")
 
 
-
 def cmd_run(args) -> int:
     from .config import load_config
     from .solve import solve, n_iterations, bath_from_spec
