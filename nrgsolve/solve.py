@@ -217,8 +217,13 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
         if first == 0:   # Anderson: the bath run starts at site 1 with the chain's own hopping t_0
             bsteps = [Step(n, (float(chain.onsite[n]),) * n_channels, (float(chain.hopping[n - 1]),) * n_channels,
                            energy_scale(n, d.Lambda, z, D, d.scheme)) for n in range(1, n_sites)]
+        # full density matrix: the bath run discards above the impurity run's truncation energy of each
+        # iteration, so that both runs drop the same part of the spectrum and the method's errors cancel
+        cutoffs = ({rec.index: rec.truncation_energy for rec in res.records}
+                   if r.thermodynamics == "full-density-matrix" else None)
         bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
-                                   flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric())
+                                   flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric(),
+                                   cutoffs=cutoffs)
         bres = run_chain(bare, 0, energy_scale(0, d.Lambda, z, D, d.scheme), sym, bsteps, bsettings, None)
         bath_records = bres.records
         diag += bres.diag_seconds

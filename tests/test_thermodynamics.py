@@ -14,11 +14,11 @@ from nrgsolve.observables.kondo_scale import WILSON_NUMBER
 LN2, LN4 = math.log(2), math.log(4)
 
 
-def run(text, workers=1):
+def run(text, workers=2):
     return solve(parse_config(text), workers=workers)
 
 
-def config(impurity, Lambda=3.0, twists=1, kept=600, lowest=1e-9, extra=""):
+def config(impurity, Lambda=3.0, twists=2, kept=600, lowest=1e-9, extra="", run_extra=""):
     return f"""
 [impurity]
 {impurity}
@@ -29,6 +29,7 @@ twists = {twists}
 [run]
 kept_states = {kept}
 lowest_temperature = {lowest}
+{run_extra}
 """
 
 
@@ -40,9 +41,12 @@ def at(res, T):
 
 
 def test_decoupled_impurity_follows_curie_law():
-    """J = 0: T·χ_imp = 1/4 and S_imp = ln 2 at every temperature (Curie law; common practice, no source)."""
+    """J = 0: T·χ_imp = 1/4 and S_imp = ln 2 at every temperature (Curie law; common practice, no source).
+    Full-density-matrix thermodynamics with only 400 states: within 0.2 % (measured 0.1 %; the impurity
+    run keeps half as many bath states as the bath run, so the method's small errors do not cancel
+    exactly)."""
     res = run(config('model = "kondo"\nexchange = 0.0', kept=400, lowest=1e-8))
-    np.testing.assert_allclose(res.thermo.T_chi, 0.25, atol=2e-4)
+    np.testing.assert_allclose(res.thermo.T_chi, 0.25, atol=5e-4)
     np.testing.assert_allclose(res.thermo.entropy, LN2, atol=2e-3)
     assert res.summary.kondo_temperature_crossover is None
     assert res.summary.wilson_ratio is None
@@ -138,12 +142,15 @@ def resonant_level_exact(T, eps_d, gamma, D=1.0):
 
 @pytest.mark.slow
 def test_resonant_level_matches_exact_finite_band_thermodynamics():
-    """U = 0, Γ = 0.01 D, ε_d = 0.003 D, Λ = 3, adaptive discretization with 4 twists: T·χ_imp and S_imp
+    """Conventional thermodynamics (the full-density-matrix default has its own test in
+    test_defaults_and_fdm.py), U = 0, Γ = 0.01 D, ε_d = 0.003 D, Λ = 3, adaptive discretization with 4 twists: T·χ_imp and S_imp
     agree with the exact finite-band answer (numerical integration above) within 1 % of their
     high-temperature scale over eight decades, 5e-10 D … 8e-2 D (exact solution; Oliveira & Oliveira
     1994 for z-averaging)."""
     res = run(config('model = "resonant-level"\nlevel = 0.003\nhybridization = 0.01', Lambda=3.0, twists=4,
-                     kept=500, lowest=4e-10, extra='scheme = "adaptive"'), workers=2)
+                     kept=500, lowest=4e-10, extra='scheme = "adaptive"',
+                     run_extra='thermodynamics = "conventional"'),
+              workers=2)
     th = res.thermo
     sel = (th.temperature >= 5e-10) & (th.temperature <= 8e-2)
     assert np.log10(th.temperature[sel][-1] / th.temperature[sel][0]) >= 8.0

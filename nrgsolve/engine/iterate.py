@@ -56,6 +56,12 @@ class EngineSettings:
         Roundoff offsets between charge sectors grow like Λ^{N/2} in units of
         ω_N and would otherwise split the symmetric ground multiplet of long
         odd chains.
+    cutoffs : dict, optional
+        Iteration index → energy (units of ω_N, from the ground state) below which every state is
+        kept at that iteration, overriding ``kept_states``/``energy_cutoff`` there (infinite: keep
+        all).  A bath-only run given the impurity run's truncation energies discards the same
+        part of the spectrum, so the errors of full-density-matrix thermodynamics cancel in the
+        impurity contribution.
     """
 
     kept_states: int
@@ -65,6 +71,7 @@ class EngineSettings:
     degeneracy_tol: float = 1e-6
     driver: str = "evd"
     particle_hole_symmetric: bool = False
+    cutoffs: dict | None = None
 
 
 @dataclass(frozen=True)
@@ -110,8 +117,12 @@ class EngineResult:
     total_seconds: float = 0.0
 
 
-def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool):
+def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, index: int | None = None):
     """Choose the kept number of states per block; returns (kept dict, E_trunc, kept count)."""
+    cutoff = settings.energy_cutoff
+    if settings.cutoffs is not None and index in settings.cutoffs:
+        cutoff = settings.cutoffs[index]
+        first = False
     labels = list(energies_by_block)
     allE = np.concatenate([energies_by_block[L] for L in labels])
     mult = np.concatenate([np.full(len(energies_by_block[L]), sym.multiplicity(L)) for L in labels])
@@ -119,8 +130,8 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool):
     Es = allE[order]
     cum = np.cumsum(mult[order])
     total = int(cum[-1])
-    if settings.energy_cutoff is not None:
-        n_keep = int(np.searchsorted(Es, settings.energy_cutoff, side="right"))
+    if cutoff is not None:
+        n_keep = int(np.searchsorted(Es, cutoff, side="right"))
     else:
         n_keep = int(np.searchsorted(cum, settings.kept_states, side="left")) + 1
     n_keep = min(max(n_keep, 1), len(Es))
@@ -219,7 +230,7 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
     ground = e0
     F = initial.F
     scalars = initial.scalars
-    kept_info = _truncate(energies, sym, settings, first=True)
+    kept_info = _truncate(energies, sym, settings, first=True, index=initial_index)
     if initial_index >= 0:
         sd = {name: {L: np.diag(m) for L, m in d.items()} for name, d in scalars.items()}
         result.records.append(_record(initial_index, initial_scale, ground, energies, sym, kept_info, sd,
@@ -284,7 +295,7 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
             new_E[Ln] = new_E[Ln] - e0
         ground = ground + st.scale * e0
         first_trunc = first
-        kinfo = _truncate(new_E, sym, settings, first=first_trunc)
+        kinfo = _truncate(new_E, sym, settings, first=first_trunc, index=st.index)
         first = False
         new_kept = kinfo[0]
         # scalar operators: thermal diagonals over all states, kept matrices for the next step
