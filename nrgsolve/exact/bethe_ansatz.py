@@ -290,7 +290,7 @@ def _constant_solution(levels, channels, side):
     return out
 
 
-def solve_tower(channels, levels, nodes, tol=1e-11, closure="lorentz"):
+def solve_tower(channels, levels, nodes, tol=1e-11, closure="lorentz", start=None):
     """Solve the truncated TBA tower at h = 0 and its linearization in h².
 
     Parameters
@@ -309,13 +309,21 @@ def solve_tower(channels, levels, nodes, tol=1e-11, closure="lorentz"):
         Lorentzian whose Fourier transform e^{-|ω|/2} is the large-n propagator
         of x-dependent deviations from level to level; both are exact for
         x-independent solutions, the second converges much faster in N.
+    start : TowerSolution, optional
+        A solution on another grid (same levels) to start from (interpolated).
 
     Returns
     -------
     TowerSolution
     """
-    k = int(channels)
-    x = np.asarray(nodes, float)
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):          # small matrices: threads only contend
+        return _solve_tower(int(channels), int(levels), np.asarray(nodes, float), tol, closure, start)
+
+
+def _solve_tower(k, levels, x, tol, closure, start):
+    """Body of :func:`solve_tower`."""
     Kmat = _hat_weights(x, x, 0)
     drive = np.zeros((levels, x.size))
     drive[k - 1] = np.exp(np.pi * x)
@@ -342,6 +350,8 @@ def solve_tower(channels, levels, nodes, tol=1e-11, closure="lorentz"):
     right = _constant_solution(levels, k, +1)[:, None]
     w = 0.5 * (1.0 + np.tanh(x))[None, :]
     L0 = (1 - w) * left + w * right
+    if start is not None:
+        L0 = np.array([np.interp(x, start.nodes, row) for row in start.log_one_plus_eta])
     flat, iterations = _anderson(fixed_map, L0.ravel(), tol)
     L = flat.reshape(levels, -1)
 
@@ -363,6 +373,8 @@ def solve_tower(channels, levels, nodes, tol=1e-11, closure="lorentz"):
     # start from the constant-solution response n(n+2)/3 (exact at x → −∞)
     n = np.arange(1, levels + 1)[:, None]
     psi0 = (tau * n * (n + 2) / 3.0).ravel()
+    if start is not None:
+        psi0 = np.array([np.interp(x, start.nodes, row) for row in start.h2_response]).ravel()
     psi, info = gmres(op, rhs.ravel(), x0=psi0, rtol=1e-12, atol=0.0, restart=60, maxiter=200)
     if info != 0:
         raise NrgNumericalError(f"Bethe-ansatz h² equations: GMRES did not converge (info={info})")
@@ -508,14 +520,12 @@ def tower_solutions(channels, cache_dir=None, use_cache=True):
     path = _cache_file(Path(cache_dir) if cache_dir else default_cache_dir(), settings)
     sols = _load_cached(path, settings) if use_cache else None
     if sols is None:
-        from threadpoolctl import threadpool_limits
-
-        with threadpool_limits(limits=1):      # small matrices: threads only contend
-            sols = [solve_tower(channels, settings["levels"],
-                                make_grid(h, settings["core_left"], settings["core_right"], settings["far_left"],
-                                          settings["far_right"], settings["growth"]),
-                                tol=settings["tol"], closure=settings["closure"])
-                    for h in settings["spacings"]]
+        sols = []
+        for h in settings["spacings"]:
+            grid = make_grid(h, settings["core_left"], settings["core_right"], settings["far_left"],
+                             settings["far_right"], settings["growth"])
+            sols.append(solve_tower(channels, settings["levels"], grid, tol=settings["tol"],
+                                    closure=settings["closure"], start=sols[-1] if sols else None))
         if use_cache:
             _store_cached(path, settings, sols)
     _MEMORY[key] = sols
