@@ -674,3 +674,23 @@ def has_exact_curve(channels, spin) -> bool:
     except NrgInputError:
         return False
     return True
+
+
+def crossover_temperature(channels=1, spin=0.5, value=0.07, *, cache_dir=None, use_cache=True):
+    """The temperature where the exact T·χ_imp falls through ``value``, in the units of
+    :func:`kondo_thermodynamics` (T_K or T_0), or None if it never does within 10⁻⁴ … 10⁴.
+
+    With value = 0.07 (g μ_B)²/k_B this is the crossover definition of the Kondo temperature
+    (Krishna-murthy, Wilkins & Wilson 1980) applied to the exact curve.
+    """
+    from scipy.optimize import brentq
+
+    grid = np.logspace(-4, 4, 161)
+    r = kondo_thermodynamics(grid, channels, spin, cache_dir=cache_dir, use_cache=use_cache)
+    above = r.t_chi >= value
+    if above.all() or not above.any():
+        return None
+    i = int(np.argmax(above))                          # first grid point at or above the value
+    f = lambda lt: kondo_thermodynamics([math.exp(lt)], channels, spin, cache_dir=cache_dir,  # noqa: E731
+                                        use_cache=use_cache).t_chi[0] - value
+    return float(math.exp(brentq(f, math.log(grid[i - 1]), math.log(grid[i]), xtol=1e-12)))
