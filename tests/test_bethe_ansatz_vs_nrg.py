@@ -36,7 +36,7 @@ bath_reference = "nrg"
 TWO_CHANNEL = """\
 [impurity]
 model = "two-channel-kondo"
-exchange = 0.25
+exchange = 0.15
 
 [discretization]
 scheme = "adaptive"
@@ -94,7 +94,8 @@ def test_one_channel_wilson_ratio_of_the_run_is_the_exact_two(one_channel):
 def test_two_channel_entropy_matches_the_exact_curve_with_one_fitted_scale():
     """Two-channel spin-½ Kondo: with one fitted scale T_0, S_imp(T) of the run lies within 0.3 % of
     ln 2 of the exact curve wherever the exact T/T_0 is between 10⁻³ and 10, and its residual entropy
-    is ½ ln 2 (Affleck & Ludwig 1991, from memory)."""
+    is ½ ln 2 (Affleck & Ludwig 1991, from memory).  Measured: 0.17 % (T_0 = 6.4e-4 D); ρJ = 0.25
+    (T_0 = 0.045 D) is outside the universal regime and misses by 4.7 %."""
     T, _, ent, _ = _curves(TWO_CHANNEL)
     ok = np.isfinite(ent) & (T > 0)
     T, ent = T[ok], ent[ok]
