@@ -234,3 +234,18 @@ def test_bad_model_parameters_are_named_in_one_clear_error(kwargs, name):
 def test_bad_temperatures_are_named_in_one_clear_error(t):
     with pytest.raises(NrgInputError, match="t_over_tk: got"):
         kondo_thermodynamics(t)
+
+
+def test_has_exact_curve_names_the_covered_models():
+    assert ba.has_exact_curve(1, 0.5) and ba.has_exact_curve(2, 0.5) and ba.has_exact_curve(1, 2.0)
+    assert not ba.has_exact_curve(0, 0.5) and not ba.has_exact_curve(1, 0.25) and not ba.has_exact_curve(9, 0.5)
+
+
+def test_cache_folder_is_the_users_cache_unless_overridden(monkeypatch, tmp_path):
+    """$NRGSOLVE_CACHE_DIR wins; otherwise the platform's user cache folder (XDG on Linux)."""
+    monkeypatch.setenv("NRGSOLVE_CACHE_DIR", str(tmp_path / "mine"))
+    assert ba.default_cache_dir() == tmp_path / "mine"
+    monkeypatch.delenv("NRGSOLVE_CACHE_DIR")
+    monkeypatch.setattr(ba.sys, "platform", "linux")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
+    assert ba.default_cache_dir() == tmp_path / "xdg" / "nrgsolve"
