@@ -285,8 +285,10 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
         y = np.asarray(r.thermodynamics[name], dtype=float)
         keep = np.isfinite(T) & np.isfinite(y) & (T > 0)
         ax.plot(T[keep] / tk, y[keep], "-", lw=1.4, label=lab)
-    for x, y, lab in curves:
-        ax.plot(x, y, "k--", lw=1.2, label=lab)
+    styles = ("--", ":", "-.", (0, (5, 1, 1, 1)), (0, (1, 3)))
+    for i, (x, y, lab) in enumerate(curves):
+        style = styles[i % len(styles)]
+        ax.plot(x, y, color="k", ls=style, lw=1.2, label=lab)
     ax.set_xscale("log")
     ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
     ax.set_ylabel(ylabel)
@@ -335,7 +337,7 @@ def _exact_curves(results, models, quantity, scales):
         if tc is None:
             raise NrgInputError(f"--exact: the exact T·χ of k = {k}, S = {spin:g} never falls to "
                                 f"{CROSSOVER_VALUE}; no crossover T_K to scale it with")
-        x = np.logspace(max(math.log10(lo), -4.0), min(math.log10(hi), 4.0), 300)
+        x = np.logspace(max(math.log10(lo), -5.0), min(math.log10(hi), 4.0), 300)
         r = bethe_ansatz.kondo_thermodynamics(x * tc, k, spin)
         out.append((x, getattr(r, field), f"exact (Bethe ansatz, k = {k}, S = {_spin_text(int(2 * spin))})"))
     return out
