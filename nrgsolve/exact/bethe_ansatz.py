@@ -3,7 +3,7 @@
 The k-channel Kondo model with impurity spin S, in the scaling limit, has the
 impurity free energy (Andrei, Furuya & Lowenstein 1983; Tsvelick & Wiegmann
 1983; the form below is written from memory and checked against the limits
-listed under *Checks*)
+listed under *Checks* below)
 
 .. math::
 
@@ -23,9 +23,10 @@ every temperature.
 Numerics (all in :func:`solve_tower`):
 
 * The η's are represented by ln(1 + η_n) on a grid that is uniform (spacing
-  ``spacing``) for x ≥ ``core_left`` and widens linearly in |x| further left,
-  out to ``far_left``; the high-temperature side is approached only
-  logarithmically (x → −∞), the low-temperature side exponentially.
+  ``spacing``) on [core_left, core_right] and widens linearly with the
+  distance outside it, out to ``far_left`` and ``far_right``; the high-
+  temperature side is approached only logarithmically (x → −∞), and the
+  x-dependence of level n spreads over a width ∝ n, so both ends lie far out.
 * The convolution is a product integration: ln(1 + η) is taken piecewise
   linear between the nodes and constant beyond the ends, and s is integrated
   exactly against it with its first and second primitives
@@ -35,12 +36,22 @@ Numerics (all in :func:`solve_tower`):
   specific heat) without numerical differencing.
 * The tower is cut at n = ``levels``; the level above is closed with the x-
   independent solution 1 + η_n = [sinh((n + c)h)/sinh h]² matched to level n
-  (at h = 0: 1 + η_{n+1} = (1 + √(1 + η_n))²), exact for both x → ±∞ limits.
+  (at h = 0: 1 + η_{n+1} = (1 + √(1 + η_n))²), exact for both x → ±∞ limits,
+  and then convolved with the Lorentzian (1/2π)/(x² + 1/4), whose Fourier
+  transform e^{−|ω|/2} carries x-dependent deviations from one level to the
+  next at large n (this halves the truncation error of T·χ).
 * The nonlinear equations at h = 0 are solved by Anderson-accelerated fixed-
   point iteration; the susceptibility comes from the equations linearized in
   h² (their O(h²) term), solved by GMRES, not by differencing.
 * The discretization error is O(spacing²); two grids (spacing and spacing/2)
   are combined by Richardson extrapolation.
+
+Checks (tests/test_bethe_ansatz.py): free spin S(S+1)/3 and ln(2S+1) at
+high T; the residual entropies 0 (k = 2S), ln[sin(π(2S+1)/(k+2))/sin(π/(k+2))]
+(k > 2S) and ln(2S − k + 1) (k < 2S) at x → +∞, which follow from the
+x-independent solutions; the Wilson ratio 2 (k = 1, S = ½) and the ratio 8/3
+of the logarithmic terms of χ and C/T (k = 2, S = ½); convergence in grid and
+truncation.
 
 Units: T·χ_imp in (g μ_B)²/k_B (free spin-½: 1/4), S_imp and C_imp in k_B.
 """
