@@ -88,7 +88,7 @@ def cmd_plot_thermo(args) -> int:
     """Draw T·χ, entropy or specific heat of one or more result files on one axis."""
     from .plots import plot_thermo
     return _plot(args, args.files, f"thermo_{args.quantity}.png",
-                 lambda r: plot_thermo(r, quantity=args.quantity, scale=args.scale))
+                 lambda r: plot_thermo(r, quantity=args.quantity, scale=args.scale, exact=args.exact))
 
 
 def cmd_plot_spectral(args) -> int:
@@ -160,6 +160,8 @@ def add_commands(subparsers) -> None:
                    help="T·χ_imp, S_imp, C_imp, or the impurity averages M = ⟨S_z⟩ (abelian runs), ⟨n_d⟩, "
                         "⟨n_d↑n_d↓⟩ (Anderson runs) (default T_chi)")
     t.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
+    t.add_argument("--exact", action="store_true",
+                   help="also draw the exact Bethe-ansatz curve of the runs' Kondo model (needs --scale kondo)")
     _image_options(t, "thermo_<quantity>.png")
     t.set_defaults(func=cmd_plot_thermo)
     a = kinds.add_parser("spectral", help="impurity spectral function A(omega) of one run ([spectral] table)")

@@ -182,4 +182,37 @@ def describe(stored: StoredResult) -> str:
     lines += [f"  {w}" for w in stored.warnings] or ["  none"]
     lines += ["", "derived warnings"]
     lines += [f"  {w}" for w in derived_warnings(stored)] or ["  none"]
+    lines += exact_comparison(stored)
     return "\n".join(lines) + "\n"
+
+
+def exact_comparison(stored: StoredResult) -> list[str]:
+    """Lines comparing a one-channel Kondo run with the exact Bethe-ansatz curves (empty otherwise).
+
+    T_K is Wilson's from the run's own χ_imp(0) with w = 0.4107; the deviations are the largest
+    over T/T_K in [0.01, 10], relative to ¼, ln 2 and the exact peak of C_imp.
+    """
+    from .exact.runs import DEVIATION_WINDOW, deviation_from_exact, exact_model
+    from .observables.kondo_scale import kondo_summary
+
+    try:
+        if exact_model(_spec(stored)) != (1, 0.5):
+            return []
+    except NrgInputError:
+        return []
+    th = stored.thermodynamics
+    if not all(k in th for k in ("temperature", "T_chi_imp", "S_imp", "C_imp")):
+        return []
+    head = ["", f"exact comparison (Bethe ansatz, one-channel Kondo, T/T_K in "
+                f"[{DEVIATION_WINDOW[0]:g}, {DEVIATION_WINDOW[1]:g}], T_K = 0.4107/(4 χ_imp(0)) of this run)"]
+    T = np.asarray(th["temperature"], float)
+    chi0 = kondo_summary(T, np.asarray(th["T_chi_imp"], float), np.asarray(th["C_imp"], float)).chi_zero
+    dev = deviation_from_exact(T, th["T_chi_imp"], th["S_imp"], th["C_imp"], chi0) if chi0 else None
+    if dev is None:
+        return head + ["  not available: χ_imp(0) not reached or no temperature in the window"]
+    lines = head + [f"  T_K = {dev['kondo_temperature']:.6g} D"]
+    for key, what, ref in (("T_chi", "T·χ_imp", "of 1/4"), ("entropy", "S_imp", "of ln 2"),
+                           ("heat", "C_imp", "of its peak")):
+        d, r, at = dev[key]
+        lines.append(f"  {what}: largest deviation {d:.3g} ({100 * d / r:.2f} % {ref}) at T/T_K = {at:.3g}")
+    return lines

@@ -231,7 +231,7 @@ def kondo_temperature(result: StoredResult) -> float:
 
 
 def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str | None = None,
-                labels: list[str] | None = None, ax=None):
+                labels: list[str] | None = None, ax=None, exact: bool = False):
     """Impurity thermodynamics of several runs on one logarithmic temperature axis.
 
     Parameters
@@ -247,6 +247,10 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
         Legend entries (default: :func:`run_labels`).
     ax : Axes, optional
         Axes to draw into (default: a new figure).
+    exact : bool
+        Also draw the exact (Bethe-ansatz) curve of each run's model, on the
+        same T/T_K axis (its T_K from the same crossover definition); needs
+        ``scale="kondo"`` and T_chi, entropy or heat.
 
     Returns
     -------
@@ -255,7 +259,8 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
     Raises
     ------
     NrgInputError
-        Unknown quantity or scale, no runs, or ``scale="kondo"`` for a run without T_K.
+        Unknown quantity or scale, no runs, ``scale="kondo"`` for a run without T_K,
+        or ``exact`` for a model, quantity or scale without an exact curve.
     """
     if quantity not in THERMO_QUANTITIES:
         raise NrgInputError(f"--quantity: got {quantity!r}; allowed: {', '.join(THERMO_QUANTITIES)}")
@@ -264,10 +269,12 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
     if not results:
         raise NrgInputError("plot thermo: give at least one result file")
     name, ylabel = THERMO_QUANTITIES[quantity]
+    models = _exact_models(results, quantity, scale) if exact else []
     scales = [kondo_temperature(r) if scale == "kondo" else 1.0 for r in results]
     for r in results:
         if name not in r.thermodynamics or "temperature" not in r.thermodynamics:
             raise NrgInputError(f"{r.path}: holds no /thermodynamics/{name}")
+    curves = _exact_curves(results, models, quantity, scales) if exact else []
     labels = run_labels(results) if labels is None else list(labels)
     if ax is None:
         fig, ax = new_figure()
@@ -278,13 +285,62 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
         y = np.asarray(r.thermodynamics[name], dtype=float)
         keep = np.isfinite(T) & np.isfinite(y) & (T > 0)
         ax.plot(T[keep] / tk, y[keep], "-", lw=1.4, label=lab)
+    styles = ("--", ":", "-.", (0, (5, 1, 1, 1)), (0, (1, 3)))
+    for i, (x, y, lab) in enumerate(curves):
+        style = styles[i % len(styles)]
+        ax.plot(x, y, color="k", ls=style, lw=1.2, label=lab)
     ax.set_xscale("log")
     ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
     ax.set_ylabel(ylabel)
     ax.grid(alpha=0.25, which="both")
-    if len(results) > 1 or labels[0]:
+    if len(results) > 1 or labels[0] or curves:
         ax.legend(fontsize=8, frameon=False)
     return fig
+
+
+def _exact_models(results, quantity, scale):
+    """The distinct (channels, spin) of the runs' exact curves; NrgInputError when there is none."""
+    from .exact.runs import exact_model
+
+    if scale != "kondo":
+        raise NrgInputError("--exact: needs --scale kondo (the exact curves are functions of T/T_K)")
+    if quantity not in _EXACT_FIELDS:
+        raise NrgInputError(f"--exact: no exact curve for quantity {quantity!r}; allowed: T_chi, entropy, heat")
+    models = []
+    for r in results:
+        spec = _parsed(r)
+        if spec is None:
+            raise NrgInputError(f"--exact: {r.path}: the stored config does not parse; cannot tell its model")
+        try:
+            m = exact_model(spec)
+        except NrgInputError as exc:
+            raise NrgInputError(f"--exact: {r.path}: {exc}") from None
+        if m not in models:
+            models.append(m)
+    return models
+
+
+_EXACT_FIELDS = {"T_chi": "t_chi", "entropy": "entropy", "heat": "heat_capacity"}
+
+
+def _exact_curves(results, models, quantity, scales):
+    """(x, y, label) of the exact curve of each model, x = T/T_K with T_K from the crossover definition."""
+    from .exact import bethe_ansatz
+    from .observables.kondo_scale import CROSSOVER_VALUE
+
+    field = _EXACT_FIELDS[quantity]
+    lo = min(float(np.nanmin(np.asarray(r.thermodynamics["temperature"]))) / tk for r, tk in zip(results, scales))
+    hi = max(float(np.nanmax(np.asarray(r.thermodynamics["temperature"]))) / tk for r, tk in zip(results, scales))
+    out = []
+    for k, spin in models:
+        tc = bethe_ansatz.crossover_temperature(k, spin, CROSSOVER_VALUE)
+        if tc is None:
+            raise NrgInputError(f"--exact: the exact T·χ of k = {k}, S = {spin:g} never falls to "
+                                f"{CROSSOVER_VALUE}; no crossover T_K to scale it with")
+        x = np.logspace(max(math.log10(lo), -5.0), min(math.log10(hi), 4.0), 300)
+        r = bethe_ansatz.kondo_thermodynamics(x * tc, k, spin)
+        out.append((x, getattr(r, field), f"exact (Bethe ansatz, k = {k}, S = {_spin_text(int(2 * spin))})"))
+    return out
 
 
 def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi: int = 100) -> list[Path]:
@@ -446,3 +502,4 @@ def plot_conductance(results: list[StoredResult], labels: list[str] | None = Non
     if len(results) > 1 or labels[0]:
         ax.legend(fontsize=8, frameon=False)
     return fig
+

@@ -49,3 +49,22 @@ def assert_same_levels(su2_result, abelian_result, n_max):
         n = min(len(lev_a), len(lev_b), n_max)
         np.testing.assert_allclose(lev_a[:n], lev_b[:n], atol=1e-8)
         assert a.kept_states == b.kept_states
+
+
+import os as _os
+
+import pytest as _pytest
+
+
+@_pytest.fixture(scope="session", autouse=True)
+def _private_exact_cache(tmp_path_factory):
+    """The exact (Bethe-ansatz) curves are cached in a temporary folder shared by the whole test
+    session, subprocesses included, never in the user's cache folder."""
+    folder = tmp_path_factory.mktemp("exact_cache")
+    old = _os.environ.get("NRGSOLVE_CACHE_DIR")
+    _os.environ["NRGSOLVE_CACHE_DIR"] = str(folder)
+    yield folder
+    if old is None:
+        _os.environ.pop("NRGSOLVE_CACHE_DIR", None)
+    else:
+        _os.environ["NRGSOLVE_CACHE_DIR"] = old
