@@ -62,6 +62,10 @@ class EngineSettings:
         all).  A bath-only run given the impurity run's truncation energies discards the same
         part of the spectrum, so the errors of full-density-matrix thermodynamics cancel in the
         impurity contribution.
+    cutoff_window : float
+        With ``cutoffs``: the cut is placed in the widest gap of the spectrum within this distance
+        (units of ω_N) of the given energy, so that it does not switch from one iteration to the next
+        across a level that happens to lie near the given energy.
     """
 
     kept_states: int
@@ -72,6 +76,7 @@ class EngineSettings:
     driver: str = "evd"
     particle_hole_symmetric: bool = False
     cutoffs: dict | None = None
+    cutoff_window: float = 0.5
 
 
 @dataclass(frozen=True)
@@ -120,9 +125,11 @@ class EngineResult:
 def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, index: int | None = None):
     """Choose the kept number of states per block; returns (kept dict, E_trunc, kept count)."""
     cutoff = settings.energy_cutoff
+    snap = False
     if settings.cutoffs is not None and index in settings.cutoffs:
         cutoff = settings.cutoffs[index]
         first = False
+        snap = settings.cutoff_window > 0 and np.isfinite(cutoff)
     labels = list(energies_by_block)
     allE = np.concatenate([energies_by_block[L] for L in labels])
     mult = np.concatenate([np.full(len(energies_by_block[L]), sym.multiplicity(L)) for L in labels])
@@ -130,7 +137,16 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
     Es = allE[order]
     cum = np.cumsum(mult[order])
     total = int(cum[-1])
-    if cutoff is not None:
+    if snap:
+        lo = int(np.searchsorted(Es, cutoff - settings.cutoff_window, side="left"))
+        hi = int(np.searchsorted(Es, cutoff + settings.cutoff_window, side="right"))
+        lo, hi = max(lo, 1), min(hi, len(Es) - 1)
+        if hi > lo:
+            gaps = Es[lo:hi + 1] - Es[lo - 1:hi]          # gap below each candidate first-discarded level
+            n_keep = lo + int(np.argmax(gaps))
+        else:
+            n_keep = int(np.searchsorted(Es, cutoff, side="right"))
+    elif cutoff is not None:
         n_keep = int(np.searchsorted(Es, cutoff, side="right"))
     else:
         n_keep = int(np.searchsorted(cum, settings.kept_states, side="left")) + 1
