@@ -1,0 +1,681 @@
+"""Fixed points read off the level flow: candidate spectra from the run's own chain.
+
+For every iteration N the lowest levels of the run (energies in units of ω_N
+from the ground state, charge Q from half filling, 2S, degeneracy) are
+compared with the finite-size spectra of the candidate fixed points of the
+model (Wilson 1975; Krishna-murthy, Wilkins & Wilson 1980), each computed
+independently of the NRG engine from the same Wilson chain:
+
+* ``free-orbital``: chain sites 0..N free, the impurity orbital decoupled
+  with its four states (empty, spin-½ doublet, doubly occupied) degenerate;
+* ``valence-fluctuation``: as free-orbital with only two valence states
+  (empty + doublet, or doublet + doubly occupied) degenerate;
+* ``local-moment``: free spin S times the chain 0..N (a marginal potential
+  scattering on site 0 is fitted);
+* Fermi liquids: chain 0..N with a potential scattering V on site 0 and the
+  impurity absorbed (its charge offset q = ±1).  The phase shift at the
+  Fermi level is tan δ₀ = −π ρ₀ V (ρ₀ the density of states of site 0 at
+  ε = 0), and the total phase shift per spin is δ/π = δ₀/π + (q + 1)/2, the
+  Friedel sum rule's displaced charge per spin (Langreth 1966).  Labelled
+  ``strong-coupling`` for |δ/π − ½| ≤ 0.1 (δ = π/2 is the chain with site 0
+  removed), ``frozen-impurity`` for δ/π ≤ 0.1 or ≥ 0.9 and ``fermi-liquid``
+  in between;
+* ``underscreened``: a residual spin S − ½ times the strong-coupling chain
+  (Nozières & Blandin 1980);
+* two channels: ``local-moment`` (two free chains and the spin),
+  ``strong-coupling`` in one channel (its chain without site 0, the other
+  free, no spin) and the non-Fermi-liquid ``two-channel`` fixed point.  The
+  latter has no free-fermion form; its levels are the conformal-field-theory
+  prediction of Affleck & Ludwig (1991) (fusion of the free spectrum with a
+  spin ½ in the SU(2)₂ spin sector, worked out here from memory): relative
+  energies 0, 1/8, 1/2, 5/8, 1 in units of πv_F/ℓ with the multiplets
+  listed in :data:`TWO_CHANNEL_LEVELS`.  The NRG maps the conformal unit to
+  ω_N only approximately (logarithmic discretization), so this candidate gets
+  one fitted energy scale and a looser tolerance.
+
+Free-fermion candidate spectra: the single-particle levels of the chain piece
+are computed by adding one site at a time in units of ω_n (an arrowhead
+eigenproblem per site; levels far above |η| = 10⁴ are dropped as always filled
+or empty), so that levels of order ω_N stay accurate although the chain
+spans Λ^{N/2} in energy.  The many-body levels are all fillings within an
+energy window, with (Q, 2S) from the counts of 2S_z.
+
+Everything here is a pure function of arrays (energies in units of D for
+the chain, ω_N for levels).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.optimize as sopt
+
+__all__ = ["TWO_CHANNEL_LEVELS", "LABELS", "FixedPointFlow", "single_particle_flow", "many_body_states",
+           "multiplets", "chain_multiplets", "couple", "spectrum_mismatch", "identify_fixed_points", "fixed_point_sequence",
+           "format_sequence", "fermi_liquid_label"]
+
+#: All labels that can appear (the empty string marks a crossover).
+LABELS = ("free-orbital", "valence-fluctuation", "local-moment", "strong-coupling", "fermi-liquid",
+          "frozen-impurity", "underscreened", "two-channel")
+
+#: Two-channel spin-½ Kondo fixed point, levels up to one conformal unit above the ground state:
+#: (energy in units of πv_F/ℓ, total charge Q, 2S, number of multiplets).  Affleck & Ludwig,
+#: Nucl. Phys. B 360, 641 (1991) (from memory): x = Q²/8 + j_s(j_s+1)/4 + j_f(j_f+1)/4 + n for the
+#: free primaries fused with spin ½ (0 → ½, ½ → 0 or 1, 1 → ½), minus the ground value 3/16.
+TWO_CHANNEL_LEVELS = (
+    (0.0, 0, 1, 1),
+    (0.125, 1, 0, 2), (0.125, -1, 0, 2),
+    (0.5, 0, 1, 3), (0.5, 2, 1, 1), (0.5, -2, 1, 1),
+    (0.625, 1, 2, 2), (0.625, -1, 2, 2),
+    (1.0, 0, 1, 5), (1.0, 0, 3, 1), (1.0, 2, 1, 3), (1.0, -2, 1, 3),
+)
+
+_DROP = 1e4          # single-particle levels beyond ±_DROP ω_n are frozen
+_E_WINDOW = 4.5      # many-body window above the ground state (units of ω_N)
+_UNMATCHED = 1.0     # mismatch charged for a level without partner (units of ω_N)
+
+
+# --------------------------------------------------------------------------- #
+# single-particle levels
+
+def single_particle_flow(onsite, hopping, scales, first: int, last: int, potential: float = 0.0):
+    """Single-particle levels of the chain sites first..n, for every n ≤ last, in units of ω_n.
+
+    Parameters
+    ----------
+    onsite : ndarray (M,)
+        ε_n of the chain (units of D).
+    hopping : ndarray (M−1,)
+        t_n between sites n and n+1 (units of D).
+    scales : ndarray (M,)
+        ω_n of every chain index n (units of D).
+    first, last : int
+        Chain piece first..last; the potential acts on site ``first``.
+    potential : float
+        Extra on-site energy V on site ``first`` (units of D).
+
+    Returns
+    -------
+    dict
+        n -> (levels, frozen_filled, orbitals): the kept single-particle levels
+        (sorted, units of ω_n), the number of dropped levels below the Fermi
+        level (always filled) and the number of orbitals n − first + 1.
+    """
+    out = {}
+    e = np.array([(onsite[first] + potential) / scales[first]])
+    amp = np.array([1.0])
+    filled = 0
+
+    def drop(e, amp, filled):
+        far = np.abs(e) > _DROP
+        filled += int(np.count_nonzero(e[far] < 0))
+        return e[~far], amp[~far], filled
+
+    e, amp, filled = drop(e, amp, filled)
+    out[first] = (e.copy(), filled, 1)
+    for n in range(first + 1, last + 1):
+        ratio = scales[n - 1] / scales[n]
+        k = e.size
+        H = np.zeros((k + 1, k + 1))
+        H[np.arange(k), np.arange(k)] = ratio * e
+        H[k, k] = onsite[n] / scales[n]
+        H[:k, k] = H[k, :k] = hopping[n - 1] / scales[n] * amp
+        e, U = np.linalg.eigh(H)
+        amp = U[k, :]
+        e, amp, filled = drop(e, amp, filled)
+        out[n] = (e.copy(), filled, n - first + 1)
+    return out
+
+
+def _species_configs(levels, filled, orbitals, ecut):
+    """All fillings of one spin species with excitation energy ≤ ecut: (E, q) with q = n − orbitals/2."""
+    levels = np.asarray(levels, float)
+    neg = levels < 0
+    base = filled + int(np.count_nonzero(neg)) - 0.5 * orbitals
+    cost = np.abs(levels)
+    sign = np.where(neg, -1, 1)
+    order = np.argsort(cost)
+    cost, sign = cost[order], sign[order]
+    Es, qs = [], []
+
+    def rec(i, E, q):
+        Es.append(E)
+        qs.append(q)
+        for j in range(i, cost.size):
+            if E + cost[j] > ecut:
+                break
+            rec(j + 1, E + cost[j], q + sign[j])
+
+    rec(0, 0.0, 0)
+    return np.array(Es), np.array(qs) + base
+
+
+def _combine(a, b, ecut):
+    """Product of two state lists (E, Q, 2S_z) within the window ecut."""
+    E = a[0][:, None] + b[0][None, :]
+    m = E <= ecut + 1e-9
+    Q = a[1][:, None] + b[1][None, :]
+    S = a[2][:, None] + b[2][None, :]
+    return E[m], Q[m], S[m]
+
+
+def many_body_states(channels, impurity, ecut: float = _E_WINDOW):
+    """Many-body states of free channels times impurity states, from their common ground.
+
+    Parameters
+    ----------
+    channels : list of (levels, frozen_filled, orbitals)
+        One entry per channel (both spin species alike), from :func:`single_particle_flow`.
+    impurity : list of (Q, 2S_z)
+        Degenerate impurity states at zero energy.
+    ecut : float
+        Window above the lowest state (units of ω_N).
+
+    Returns
+    -------
+    E, Q, twice_sz : ndarray
+        One entry per state; E from the lowest state, Q from half filling.
+    """
+    lists = []
+    for levels, filled, orbitals in channels:
+        E, q = _species_configs(levels, filled, orbitals, ecut)
+        lists.append((E, q, q))          # spin up: 2S_z contribution +q
+        lists.append((E, q, -q))         # spin down: −q
+    imp = np.asarray(impurity, float).reshape(-1, 2)
+    st = (np.zeros(len(imp)), imp[:, 0], imp[:, 1])
+    for a in lists:
+        st = _combine(st, a, ecut)
+    E = st[0] - st[0].min()
+    keep = E <= ecut
+    return E[keep], np.rint(st[1][keep]).astype(int), np.rint(st[2][keep]).astype(int)
+
+
+def multiplets(E, Q, twice_sz, tol: float = 1e-7):
+    """Group states into SU(2) multiplets: returns (E, Q, 2S) sorted by energy.
+
+    The number of multiplets with spin S in a degenerate (E, Q) group is
+    n(2S_z = 2S) − n(2S_z = 2S + 2).
+    """
+    E = np.asarray(E, float)
+    if E.size == 0:
+        return np.zeros(0), np.zeros(0, int), np.zeros(0, int)
+    key = np.rint(E / tol).astype(np.int64)
+    rows, counts = np.unique(np.stack([key, np.asarray(Q, np.int64), np.asarray(twice_sz, np.int64)]),
+                             axis=1, return_counts=True)
+    have = {(int(k), int(q), int(m)): int(c) for (k, q, m), c in zip(rows.T, counts)}
+    oE, oQ, oS = [], [], []
+    for (k, q, m), c in have.items():
+        if m < 0:
+            continue
+        n = c - have.get((k, q, m + 2), 0)
+        if n > 0:
+            oE += [k * tol] * n
+            oQ += [q] * n
+            oS += [m] * n
+    order = np.lexsort((oS, oQ, oE))
+    return np.asarray(oE)[order], np.asarray(oQ, int)[order], np.asarray(oS, int)[order]
+
+
+def chain_multiplets(channel, ecut: float = _E_WINDOW):
+    """Spinful multiplets (E, Q, 2S) of one free channel from its lowest state (units of ω_N).
+
+    Parameters
+    ----------
+    channel : (levels, frozen_filled, orbitals)
+        From :func:`single_particle_flow`.
+    """
+    return multiplets(*many_body_states([channel], [(0, 0)], ecut))
+
+
+def couple(a, b, ecut: float = _E_WINDOW):
+    """SU(2) product of two multiplet lists (E, Q, 2S): energies and charges add, spins couple."""
+    E = np.add.outer(a[0], b[0]).ravel()
+    Q = np.add.outer(a[1], b[1]).ravel()
+    s1 = np.repeat(a[2], len(b[0]))
+    s2 = np.tile(b[2], len(a[0]))
+    m = E <= ecut + 1e-9
+    E, Q, s1, s2 = E[m], Q[m], s1[m], s2[m]
+    n = np.minimum(s1, s2) + 1                          # number of total spins per pair
+    idx = np.repeat(np.arange(E.size), n)
+    start = np.cumsum(n) - n
+    k = np.arange(idx.size) - np.repeat(start, n)
+    E, Q = E[idx], Q[idx]
+    S = np.abs(s1 - s2)[idx] + 2 * k
+    if E.size:
+        E = E - E.min()
+    order = np.lexsort((S, Q, E))
+    return E[order], Q[order].astype(int), S[order].astype(int)
+
+
+def _impurity(mults):
+    """Zero-energy impurity multiplets [(Q, 2S), ...] as a multiplet list."""
+    m = np.asarray(mults, int).reshape(-1, 2)
+    return np.zeros(len(m)), m[:, 0], m[:, 1]
+
+
+# --------------------------------------------------------------------------- #
+# comparison
+
+def _ranked(E, Q, S):
+    """dict (Q, S) -> sorted energies."""
+    out = {}
+    for e, q, s in sorted(zip(np.asarray(E).tolist(), np.asarray(Q).tolist(), np.asarray(S).tolist())):
+        out.setdefault((q, s), []).append(e)
+    return out
+
+
+def spectrum_mismatch(E, Q, S, cE, cQ, cS, n_compare: int = 12, margin: float = 0.3) -> float:
+    """RMS difference (units of ω_N) between the lowest run levels and a candidate spectrum.
+
+    Levels are paired by rank inside each (Q, S) sector.  The window is the
+    energy of the ``n_compare``-th run level; a run level in it without a
+    candidate partner, or a candidate level below the window minus ``margin``
+    without a run partner, costs 1 ω_N.
+
+    Parameters
+    ----------
+    E, Q, S : ndarray
+        Run levels (energies from the ground state, charge, 2S or 2S_z).
+    cE, cQ, cS : ndarray
+        Candidate levels, same conventions.
+    """
+    return _mismatch(_run_levels(E, Q, S, n_compare), cE, cQ, cS, margin)
+
+
+def _run_levels(E, Q, S, n_compare):
+    """(window top, ranked run levels) of one iteration, or None if it holds no level."""
+    E = np.asarray(E, float)
+    ok = np.isfinite(E)
+    if not np.any(ok):
+        return None
+    E, Q, S = E[ok], np.asarray(Q)[ok], np.asarray(S)[ok]
+    top = float(np.sort(E)[min(n_compare, E.size) - 1])
+    run = {k: (v, sum(1 for x in v if x <= top)) for k, v in _ranked(E, Q, S).items()}
+    return top, run
+
+
+def _mismatch(levels, cE, cQ, cS, margin=0.3):
+    if levels is None or np.size(cE) == 0:
+        return math.inf
+    top, run = levels
+    cE = np.asarray(cE, float)
+    sel = cE <= top + 1.0
+    cand = _ranked(cE[sel], np.asarray(cQ)[sel], np.asarray(cS)[sel])
+    total, count = 0.0, 0
+    for key in set(run) | set(cand):
+        a, na = run.get(key, ((), 0))
+        b = cand.get(key, ())
+        nb = sum(1 for x in b if x <= top - margin)
+        for i in range(max(na, nb)):
+            d = min(abs(a[i] - b[i]), _UNMATCHED) if i < len(a) and i < len(b) else _UNMATCHED
+            total += d * d
+            count += 1
+    return math.sqrt(total / count) if count else math.inf
+
+
+def _centroid_mismatch(E, Q, S, abelian, top, cE, cQ, cS, margin=0.3):
+    """Mismatch of degenerate-cluster centroids, for fixed points approached with a marginal exchange.
+
+    A marginal exchange J S·s splits each degenerate (E, Q) cluster of the
+    local-moment spectrum at first order without moving its centroid (S·s is
+    traceless on the product of the impurity and a chain multiplet), so the
+    run's states of each charge sector are assigned in energy order to the
+    candidate clusters (counting 2S+1 states per multiplet) and the cluster
+    centroids are compared, all measured from the centroid of the ground cluster.
+    """
+    E = np.asarray(E, float)
+    ok = np.isfinite(E)
+    E, Q, S = E[ok], np.asarray(Q)[ok], np.asarray(S)[ok]
+    mult = np.ones(E.size, int) if abelian else S + 1
+    cE, cQ, cS = np.asarray(cE, float), np.asarray(cQ), np.asarray(cS)
+    cmult = np.ones(cE.size, int) if abelian else cS + 1
+    pairs = []                                   # (candidate energy, run centroid or None, is ground)
+    for q in sorted(set(Q.tolist()) | set(cQ[cE <= top].tolist())):
+        run = np.repeat(np.sort(E[Q == q]), 1) if abelian else None
+        sel = Q == q
+        order = np.argsort(E[sel], kind="stable")
+        states = np.repeat(E[sel][order], mult[sel][order])
+        csel = cQ == q
+        ce, cm = cE[csel], cmult[csel]
+        keys = np.rint(ce / 1e-7).astype(np.int64)
+        clusters = [(float(ce[keys == k][0]), int(cm[keys == k].sum())) for k in np.unique(keys)]
+        pos = 0
+        for e, n in clusters:
+            if e > top - margin and pos >= np.count_nonzero(states <= top):
+                break
+            if pos + n <= states.size:
+                pairs.append((e, float(states[pos:pos + n].mean()), e == 0.0))
+            else:
+                pairs.append((e, None, e == 0.0))
+            pos += n
+        del run
+        left = np.count_nonzero(states[pos:] <= top - margin) if pos < states.size else 0
+        pairs.extend([(math.inf, None, False)] * int(left))
+    ground = [c for e, c, g in pairs if g and c is not None]
+    if not ground:
+        return math.inf
+    c0 = float(np.mean(ground))
+    errs = [_UNMATCHED if c is None else min(abs(c - c0 - e), _UNMATCHED) for e, c, g in pairs]
+    return math.sqrt(sum(x * x for x in errs) / len(errs)) if errs else math.inf
+
+
+def _expand(E, Q, S, abelian):
+    """Multiplets -> the run's representation (abelian: one state per S_z)."""
+    if not abelian:
+        return E, Q, S
+    rows = [(e, q, m) for e, q, s in zip(E, Q, S) for m in range(-s, s + 1, 2)]
+    return (np.array([r[0] for r in rows]), np.array([r[1] for r in rows], int),
+            np.array([r[2] for r in rows], int))
+
+
+# --------------------------------------------------------------------------- #
+# candidates
+
+@dataclass(frozen=True)
+class _Candidate:
+    label: str
+    chains: tuple            # per channel: first chain site (0 or 1)
+    impurity: tuple          # zero-energy impurity multiplets (Q, 2S)
+    fit_potential: bool = False          # fit a potential on site 0 of channel 0
+    charge_offset: int | None = None     # Fermi liquid: absorbed charge q, for the total phase shift
+
+
+def _candidates(twice_spin: int, n_channels: int, charged: bool):
+    c = []
+    if n_channels == 2:
+        c.append(_Candidate("local-moment", (0, 0), ((0, twice_spin),)))
+        c.append(_Candidate("strong-coupling", (1, 0), ((0, 0),)))
+        return c
+    if charged:
+        c.append(_Candidate("free-orbital", (0,), ((-1, 0), (0, 1), (1, 0)), True))
+        c.append(_Candidate("valence-fluctuation", (0,), ((-1, 0), (0, 1)), True))
+        c.append(_Candidate("valence-fluctuation", (0,), ((1, 0), (0, 1)), True))
+    c.append(_Candidate("local-moment", (0,), ((0, twice_spin),), True))
+    for q in (-1, 1):
+        if twice_spin == 1 or charged:
+            c.append(_Candidate("fermi-liquid", (0,), ((q, 0),), True, q))
+        else:
+            c.append(_Candidate("underscreened", (0,), ((q, twice_spin - 1),), True, q))
+    return c
+
+
+def fermi_liquid_label(phase_shift: float) -> str:
+    """Name of a Fermi-liquid fixed point from its total phase shift per spin δ/π.
+
+    ``strong-coupling`` for |δ/π − ½| ≤ 0.1, ``frozen-impurity`` for δ/π ≤ 0.1 or
+    ≥ 0.9, ``fermi-liquid`` (a generic phase-shifted Fermi liquid) in between.
+    """
+    if abs(phase_shift - 0.5) <= 0.1:
+        return "strong-coupling"
+    if phase_shift <= 0.1 or phase_shift >= 0.9:
+        return "frozen-impurity"
+    return "fermi-liquid"
+
+
+@dataclass(frozen=True)
+class FixedPointFlow:
+    """Fixed point of every iteration.
+
+    Attributes
+    ----------
+    iteration : ndarray (I,)
+        Chain index N.
+    label : list of str (I,)
+        Best candidate, or "" where none matches within the tolerance (a crossover).
+    error : ndarray (I,)
+        RMS level mismatch of the best candidate (units of ω_N).
+    phase_shift : ndarray (I,)
+        Total phase shift per spin δ/π where the best candidate is a Fermi liquid
+        (or the underscreened fixed point) and the bath has a finite density of
+        states at the Fermi level; NaN otherwise.
+    candidates : dict
+        label -> ndarray (I,): the smallest mismatch of each candidate kind.
+    """
+
+    iteration: np.ndarray
+    label: list
+    error: np.ndarray
+    phase_shift: np.ndarray
+    candidates: dict = field(default_factory=dict)
+
+
+def _theta_potential(theta, rho0, scale):
+    """Site-0 potential V (D) for the angle θ = δ₀: tan δ₀ = −π ρ₀ V (ρ₀ = 0: V = −tan θ · scale)."""
+    t = math.tan(theta)
+    return -t / (math.pi * rho0) if rho0 > 0 else -t * scale
+
+
+def _two_channel_mismatch(E, Q, S, abelian, n_compare):
+    """Mismatch against the conformal two-channel levels, in units fixed by the lowest Q = ±1, S = 0 level."""
+    lev = [(e, q, s) for e, q, s, n in TWO_CHANNEL_LEVELS for _ in range(n)]
+    cE0 = np.array([r[0] for r in lev])
+    cQ = np.array([r[1] for r in lev])
+    cS = np.array([r[2] for r in lev])
+    ok = np.isfinite(E)
+    sel = ok & (np.abs(Q) == 1) & (S == 0)
+    if not np.any(sel):
+        return math.inf
+    unit = float(np.min(E[sel])) / 0.125
+    if unit <= 0:
+        return math.inf
+    a, b, c = _expand(cE0 * unit, cQ, cS, abelian)
+    nn = int(np.count_nonzero(np.asarray(E)[ok] < unit * 0.8))
+    return spectrum_mismatch(E, Q, S, a, b, c, min(n_compare, max(nn, 3))) / unit
+
+
+#: A local moment is approached only logarithmically (the exchange is marginal; Wilson 1975), so its
+#: levels keep a splitting of order ρJ over many iterations: it gets this multiple of the tolerance.
+LOCAL_MOMENT_SLACK = 1.5
+_MARGINAL = ("local-moment", "underscreened")
+
+
+def _tolerance(label, tolerance, two_channel_tolerance):
+    if label == "two-channel":
+        return two_channel_tolerance
+    if label in ("local-moment", "underscreened"):
+        return LOCAL_MOMENT_SLACK * tolerance
+    return tolerance
+
+
+def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping, scales, *,
+                          charged: bool, twice_impurity_spin: int = 1, n_channels: int = 1,
+                          abelian: bool = False, rho0: float = 0.0, particle_hole_symmetric: bool = False,
+                          tolerance: float = 0.06,
+                          two_channel_tolerance: float = 0.1, n_compare: int = 12) -> FixedPointFlow:
+    """Label every iteration of a flow with the best-matching fixed point.
+
+    Parameters
+    ----------
+    iteration : ndarray (I,)
+        Chain index N of each stored iteration.
+    energy, charge, twice_spin : ndarray (I, L)
+        Lowest levels per iteration (units of ω_N from the ground state; Q from
+        half filling; 2S in su2 mode, 2S_z in abelian mode); NaN energies are ignored.
+    onsite, hopping : ndarray (M,), (M−1,)
+        The run's chain (units of D), the same for every channel.
+    scales : ndarray (M,)
+        ω_n for every chain index n (units of D).
+    charged : bool
+        The impurity is an orbital (Anderson model) rather than a spin (Kondo models).
+    twice_impurity_spin : int
+        2S of a Kondo impurity (1 for the Anderson model).
+    n_channels : int
+        1 or 2.
+    abelian : bool
+        Levels are (Q, 2S_z) states rather than SU(2) multiplets.
+    rho0 : float
+        Density of states of chain site 0 at the Fermi level (1/D), which fixes
+        the phase shift of a site-0 potential; 0 for a pseudogap (no phase
+        shift is then reported).
+    particle_hole_symmetric : bool
+        The model is particle-hole symmetric: the site-0 potential is then only
+        0 or infinite (phase shift 0 or π/2) instead of being fitted.
+    tolerance : float
+        Largest RMS mismatch (units of ω_N) for a free-fermion candidate to count.
+    two_channel_tolerance : float
+        Largest RMS mismatch for the conformal two-channel candidate, in units
+        of the fitted conformal energy unit.
+    n_compare : int
+        Number of lowest run levels compared (multiplets; three times as many
+        states in abelian mode).
+
+    Returns
+    -------
+    FixedPointFlow
+    """
+    iteration = np.asarray(iteration, int)
+    energy = np.asarray(energy, float)
+    charge = np.asarray(charge)
+    twice_spin = np.asarray(twice_spin)
+    if abelian:
+        n_compare = 3 * n_compare
+    cands = _candidates(twice_impurity_spin, n_channels, charged)
+    I = iteration.size
+    last = int(iteration.max()) if I else 0
+    scale0 = float(np.max(np.abs(hopping))) if np.size(hopping) else 1.0
+    free = {0: single_particle_flow(onsite, hopping, scales, 0, max(last, 0)),
+            1: single_particle_flow(onsite, hopping, scales, 1, last) if last >= 1 else {}}
+    if particle_hole_symmetric:
+        grid = np.array([0.0, 0.5 * math.pi - 1e-7])
+    else:
+        grid = np.linspace(-0.5 * math.pi, 0.5 * math.pi, 49)[1:]
+        grid[-1] = 0.5 * math.pi - 1e-7
+    flows = [single_particle_flow(onsite, hopping, scales, 0, max(last, 0), _theta_potential(th, rho0, scale0))
+             for th in grid]
+    kinds = {c.label for c in cands} | ({"two-channel"} if n_channels == 2 else set())
+    if any(c.label == "fermi-liquid" for c in cands):
+        kinds |= {"strong-coupling", "frozen-impurity"}
+    per = {k: np.full(I, np.inf) for k in sorted(kinds)}
+    fl_err = np.full(I, np.inf)
+    fl_shift = np.full(I, np.nan)
+
+    for i, N in enumerate(iteration.tolist()):
+        ok = np.isfinite(energy[i])
+        if not np.any(ok) or N < 0:
+            continue
+        En, Qn, Sn = energy[i], charge[i], twice_spin[i]
+        levels = _run_levels(En, Qn, Sn, n_compare)
+        top = levels[0]
+        ecut = top + 1.0
+        cache = {}
+
+        def chain_part(key, channel):
+            if key not in cache:
+                cache[key] = chain_multiplets(channel, ecut)
+            return cache[key]
+
+        def error(c, ch0, key0):
+            parts = []
+            for k, f in enumerate(c.chains):
+                if f > N:
+                    return math.inf
+                if k == 0 and c.fit_potential:
+                    parts.append(chain_part(key0, ch0))
+                else:
+                    parts.append(chain_part(("free", f), free[f][N]))
+            m = _impurity(c.impurity)
+            for p in parts:
+                m = couple(m, p, ecut)
+            cand = _expand(*m, abelian)
+            if c.label in _MARGINAL:
+                return _centroid_mismatch(En, Qn, Sn, abelian, levels[0], *cand)
+            return _mismatch(levels, *cand)
+
+        for c in cands:
+            if not c.fit_potential:
+                per[c.label][i] = min(per[c.label][i], error(c, None, None))
+                continue
+            errs = np.array([error(c, flows[j][N], ("grid", j)) for j in range(grid.size)])
+            j = int(np.argmin(errs))
+            best_th, best = float(grid[j]), float(errs[j])
+            refine = c.charge_offset is not None and i >= I - 2 and not particle_hole_symmetric
+            if refine and np.isfinite(best) and best < 3 * tolerance:
+                lo, hi = float(grid[max(j - 1, 0)]), float(grid[min(j + 1, grid.size - 1)])
+
+                def f(th):
+                    sp = single_particle_flow(onsite, hopping, scales, 0, N, _theta_potential(th, rho0, scale0))
+                    return error(c, sp[N], ("fit", th))
+                r = sopt.minimize_scalar(f, bounds=(lo, hi), method="bounded", options={"xatol": 1e-5})
+                if r.fun < best:
+                    best_th, best = float(r.x), float(r.fun)
+            label = c.label
+            if c.charge_offset is not None:
+                delta = best_th / math.pi + 0.5 * (c.charge_offset + 1)
+                if c.label == "fermi-liquid":
+                    label = fermi_liquid_label(delta)
+                if best < fl_err[i]:
+                    fl_err[i], fl_shift[i] = best, delta
+            per[label][i] = min(per[label][i], best)
+        if n_channels == 2:
+            per["two-channel"][i] = _two_channel_mismatch(En, Qn, Sn, abelian, n_compare)
+    labels, errors = [], np.full(I, np.inf)
+    shift = np.full(I, np.nan)
+    for i in range(I):
+        scores = [(per[k][i] / _tolerance(k, tolerance, two_channel_tolerance), per[k][i], k) for k in per]
+        ratio, e, k = min(scores) if scores else (math.inf, math.inf, "")
+        errors[i] = e
+        if ratio <= 1.0:
+            labels.append(k)
+            if k in ("strong-coupling", "fermi-liquid", "frozen-impurity", "underscreened") and rho0 > 0:
+                shift[i] = fl_shift[i]
+        else:
+            labels.append("")
+    return FixedPointFlow(iteration=iteration, label=labels, error=errors, phase_shift=shift, candidates=per)
+
+
+# --------------------------------------------------------------------------- #
+# sequence along the flow
+
+def fixed_point_sequence(iteration, label, min_run: int = 3):
+    """Consecutive stretches of one fixed point.
+
+    Parameters
+    ----------
+    iteration : ndarray (I,)
+    label : sequence of str (I,)
+        "" for crossovers.
+    min_run : int
+        Shortest stretch (iterations) that counts; shorter ones are treated as crossover.
+
+    Returns
+    -------
+    list of (label, first N, last N)
+    """
+    it = np.asarray(iteration, int)
+    runs = []
+    for i, lab in enumerate(label):
+        lab = str(lab)
+        if runs and runs[-1][0] == lab:
+            runs[-1][2] = int(it[i])
+            runs[-1][3] += 1
+        else:
+            runs.append([lab, int(it[i]), int(it[i]), 1])
+    out = []
+    for lab, a, b, n in runs:
+        if not lab or n < min_run:
+            continue
+        if out and out[-1][0] == lab:
+            out[-1] = (lab, out[-1][1], b)
+        else:
+            out.append((lab, a, b))
+    return out
+
+
+def format_sequence(seq, first: int | None = None, last: int | None = None, phase_shift: float = math.nan) -> str:
+    """Text such as ``free-orbital (N ≤ 8) → local-moment (14–30) → strong-coupling (N ≥ 42)``."""
+    parts = []
+    for k, (lab, a, b) in enumerate(seq):
+        if first is not None and a <= first:
+            rng = f"N ≤ {b}"
+        elif last is not None and b >= last:
+            rng = f"N ≥ {a}"
+        else:
+            rng = f"{a}–{b}"
+        extra = ""
+        if k == len(seq) - 1 and math.isfinite(phase_shift) and lab in (
+                "strong-coupling", "fermi-liquid", "frozen-impurity", "underscreened"):
+            extra = f", δ = {phase_shift:.3f}π"
+        parts.append(f"{lab} ({rng}{extra})")
+    return " → ".join(parts) if parts else "no fixed point identified"
