@@ -66,6 +66,8 @@ def cmd_run(args) -> int:
         print(f"Kondo temperature (Wilson, χ(0) = 0.4128/4T_K): {_fmt(s.kondo_temperature_wilson, ' D')}")
         print(f"Kondo temperature (crossover, T_K χ(T_K) = 0.07): {_fmt(s.kondo_temperature_crossover, ' D')}")
         print(f"Wilson ratio: {_fmt(s.wilson_ratio)}")
+        if result.fixed_points is not None:
+            print(f"fixed points: {result.fixed_points[1].text()}")
         print(f"lowest temperature reached: {s.lowest_temperature_reached:.3g} D")
         print(f"wall time: {result.wall_seconds:.1f} s")
         for w in result.warnings:

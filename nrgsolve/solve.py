@@ -62,6 +62,7 @@ class RunResult:
     warnings: list = field(default_factory=list)
     spectral: object = None          # SpectralCurves (z-averaged) when [spectral] asks for it
     transport: object = None         # ConductanceCurve when spectral.conductance_temperatures is given
+    fixed_points: object = None      # (FixedPointFlow, FixedPointSummary) of the twist z = 1
 
 
 def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
@@ -302,9 +303,35 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
+    fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
                      wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
-                     transport=transport)
+                     transport=transport, fixed_points=fixed)
+
+
+def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
+    """Label the flow of one twist with its fixed points (see :mod:`nrgsolve.observables.fixed_points`).
+
+    The candidate spectra come from the twist's own chain; ρ₀ = g(0)/(π · coupling_sq)
+    is the density of states of chain site 0 at the Fermi level (1/D).
+
+    Returns
+    -------
+    (FixedPointFlow, FixedPointSummary)
+    """
+    from .observables.fixed_points import identify_fixed_points, summarize_fixed_points
+    d, imp, fl = spec.discretization, spec.impurity, twist.flow
+    D = bath.half_bandwidth
+    scales = np.array([energy_scale(n, d.Lambda, twist.z, D, d.scheme) for n in range(len(twist.onsite))])
+    rho0 = float(bath.shape_function(0.0)) / (math.pi * twist.coupling_sq)
+    labelled = identify_fixed_points(
+        fl.iteration, fl.energy, fl.charge, fl.twice_spin, twist.onsite, twist.hopping, scales,
+        charged=imp.model in ("anderson", "resonant-level"),
+        twice_impurity_spin=int(round(2 * imp.spin)) if imp.model == "spin-kondo" else 1,
+        n_channels=2 if imp.model == "two-channel-kondo" else 1, abelian=spec.run.symmetry == "abelian",
+        rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
+    temps = np.array([energy_scale(int(n), d.Lambda, twist.z, D, d.scheme) for n in fl.iteration]) / spec.run.beta_bar
+    return labelled, summarize_fixed_points(labelled, temps)
 
 
 def _drain(queue, progress, timeout):

@@ -21,6 +21,12 @@ Layout (units in each dataset's ``units`` attribute; see docs/results.md):
   ``kondo_temperature_crossover``, ``wilson_ratio``,
   ``lowest_temperature_reached`` (NaN means "not reached"), ``wall_seconds``,
   ``warnings``.
+* ``/flow/fixed_point`` (label per iteration, "" for a crossover),
+  ``/flow/fixed_point_error`` (ω_N), ``/flow/phase_shift`` (π) — twist z = 1;
+  ``/summary`` attributes ``fixed_points``, ``fixed_point_first_iteration``,
+  ``fixed_point_last_iteration``, ``crossover_temperatures`` (D),
+  ``final_fixed_point``, ``phase_shift`` (π), ``fixed_point_text``.  Absent
+  in files written before they existed.
 * ``/spectral/`` (runs with a [spectral] table): ``omega`` (D), ``temperature`` (D),
   ``A`` (temperatures × ω in su2 mode; spin × temperatures × ω, spin = up, down,
   in the abelian mode; 1/D, per spin), ``occupation`` (⟨n_d⟩ at those
@@ -47,7 +53,8 @@ import numpy as np
 
 from .errors import NrgInputError
 
-__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path"]
+__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path",
+           "stored_fixed_points"]
 
 FORMAT_VERSION = 1
 
@@ -223,7 +230,28 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
             s.attrs["wall_seconds"] = float(result.wall_seconds)
             s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
             _write_spectral(h, result)
+            _write_fixed_points(h, result)
     return target
+
+
+def _write_fixed_points(h, result):
+    """/flow/fixed_point, /flow/fixed_point_error, /flow/phase_shift and the /summary attributes."""
+    fixed = getattr(result, "fixed_points", None)
+    if fixed is None:
+        return
+    labelled, summ = fixed
+    f = h["flow"]
+    _ds(f, "fixed_point", np.array([x.encode() for x in labelled.label], dtype="S"), "label")
+    _ds(f, "fixed_point_error", labelled.error, "omega_N")
+    _ds(f, "phase_shift", labelled.phase_shift, "pi")
+    a = h["summary"].attrs
+    a["fixed_points"] = np.array([lab.encode() for lab, _, _ in summ.sequence] or [b""], dtype="S")
+    a["fixed_point_first_iteration"] = np.array([x for _, x, _ in summ.sequence] or [-1], dtype=int)
+    a["fixed_point_last_iteration"] = np.array([x for _, _, x in summ.sequence] or [-1], dtype=int)
+    a["crossover_temperatures"] = np.array(summ.crossover_temperatures or [np.nan], dtype=float)
+    a["final_fixed_point"] = summ.final
+    a["phase_shift"] = float(summ.phase_shift)
+    a["fixed_point_text"] = summ.text()
 
 
 def _spin_first(a):
@@ -308,3 +336,36 @@ def read_result(path: str | Path) -> StoredResult:
                                 twists, summary, warns, spectral=spectral, transport=transport)
     except (OSError, KeyError) as exc:
         raise NrgInputError(f"{p}: cannot read result file ({exc})") from None
+
+
+def _text(v) -> str:
+    return v.decode() if isinstance(v, bytes) else str(v)
+
+
+def stored_fixed_points(stored: StoredResult) -> dict | None:
+    """The fixed-point data of a stored run, or None for files written before they existed.
+
+    Returns
+    -------
+    dict or None
+        ``labels`` (list of str per iteration, "" for crossovers), ``error``
+        (ndarray, ω_N), ``iteration`` (ndarray), ``sequence`` (list of
+        (label, first N, last N)), ``crossover_temperatures`` (list, D),
+        ``final`` (str), ``phase_shift`` (float, units of π; NaN when none)
+        and ``text`` (the one-line sequence).
+    """
+    if "fixed_point" not in stored.flow or "fixed_points" not in stored.summary:
+        return None
+    s = stored.summary
+    names = [_text(x) for x in np.ravel(s["fixed_points"])]
+    first = [int(x) for x in np.ravel(s["fixed_point_first_iteration"])]
+    last = [int(x) for x in np.ravel(s["fixed_point_last_iteration"])]
+    seq = [(n, a, b) for n, a, b in zip(names, first, last) if n]
+    temps = [float(x) for x in np.ravel(s["crossover_temperatures"]) if np.isfinite(x)]
+    return {"labels": [_text(x) for x in np.ravel(stored.flow["fixed_point"])],
+            "error": np.asarray(stored.flow.get("fixed_point_error", []), float),
+            "iteration": np.asarray(stored.flow["iteration"], int),
+            "sequence": seq, "crossover_temperatures": temps,
+            "final": _text(s.get("final_fixed_point", "")),
+            "phase_shift": float(s.get("phase_shift", np.nan)),
+            "text": _text(s.get("fixed_point_text", ""))}

@@ -315,6 +315,9 @@ def _row(point: SweepPoint, stored) -> dict:
     for col in SUMMARY_COLUMNS:
         v = stored.summary.get(col, math.nan)
         row[col] = float(v)
+    fp = stored.summary.get("final_fixed_point")      # absent in files older than the fixed-point analysis
+    row["final_fixed_point"] = "" if fp is None else (fp.decode() if isinstance(fp, bytes) else str(fp))
+    row["phase_shift"] = float(stored.summary.get("phase_shift", math.nan))
     row["warnings"] = " | ".join(stored.warnings)
     row["file"] = point.file_name
     return row

@@ -54,7 +54,7 @@ import scipy.optimize as sopt
 
 __all__ = ["TWO_CHANNEL_LEVELS", "LABELS", "FixedPointFlow", "single_particle_flow", "many_body_states",
            "multiplets", "chain_multiplets", "couple", "spectrum_mismatch", "identify_fixed_points", "fixed_point_sequence",
-           "format_sequence", "fermi_liquid_label"]
+           "format_sequence", "fermi_liquid_label", "FixedPointSummary", "summarize_fixed_points"]
 
 #: All labels that can appear (the empty string marks a crossover).
 LABELS = ("free-orbital", "valence-fluctuation", "local-moment", "strong-coupling", "fermi-liquid",
@@ -540,8 +540,10 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
     if particle_hole_symmetric:
         grid = np.array([0.0, 0.5 * math.pi - 1e-7])
     else:
-        grid = np.linspace(-0.5 * math.pi, 0.5 * math.pi, 49)[1:]
+        grid = np.linspace(-0.5 * math.pi, 0.5 * math.pi, 97)[1:]
         grid[-1] = 0.5 * math.pi - 1e-7
+    coarse = list(range(0, grid.size, 8)) if grid.size > 8 else list(range(grid.size))
+    hint: dict = {}            # (candidate, parity) -> best grid index two iterations before
     flows = [single_particle_flow(onsite, hopping, scales, 0, max(last, 0), _theta_potential(th, rho0, scale0))
              for th in grid]
     kinds = {c.label for c in cands} | ({"two-channel"} if n_channels == 2 else set())
@@ -553,7 +555,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
 
     for i, N in enumerate(iteration.tolist()):
         ok = np.isfinite(energy[i])
-        if not np.any(ok) or N < 0:
+        if int(ok.sum()) < n_compare or N < 0:      # too few levels to tell fixed points apart
             continue
         En, Qn, Sn = energy[i], charge[i], twice_spin[i]
         levels = _run_levels(En, Qn, Sn, n_compare)
@@ -587,9 +589,25 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
             if not c.fit_potential:
                 per[c.label][i] = min(per[c.label][i], error(c, None, None))
                 continue
-            errs = np.array([error(c, flows[j][N], ("grid", j)) for j in range(grid.size)])
-            j = int(np.argmin(errs))
-            best_th, best = float(grid[j]), float(errs[j])
+            known = {}
+
+            def at(j):
+                if j not in known:
+                    known[j] = error(c, flows[j][N], ("grid", j))
+                return known[j]
+            h = hint.get((id(c), N % 2))
+            if h is None or grid.size <= 8:
+                j = min(coarse, key=at)
+            else:
+                j = h
+            for _ in range(grid.size):            # walk downhill on the fine grid, ±4 steps at a time
+                nbr = [k for k in range(j - 4, j + 5) if 0 <= k < grid.size]
+                jn = min(nbr, key=at)
+                if jn == j:
+                    break
+                j = jn
+            best_th, best = float(grid[j]), float(known[j])
+            hint[(id(c), N % 2)] = j if best < 3 * tolerance else None
             refine = c.charge_offset is not None and i >= I - 2 and not particle_hole_symmetric
             if refine and np.isfinite(best) and best < 3 * tolerance:
                 lo, hi = float(grid[max(j - 1, 0)]), float(grid[min(j + 1, grid.size - 1)])
@@ -679,3 +697,68 @@ def format_sequence(seq, first: int | None = None, last: int | None = None, phas
             extra = f", δ = {phase_shift:.3f}π"
         parts.append(f"{lab} ({rng}{extra})")
     return " → ".join(parts) if parts else "no fixed point identified"
+
+
+@dataclass(frozen=True)
+class FixedPointSummary:
+    """The fixed points a run passes through.
+
+    Attributes
+    ----------
+    sequence : tuple of (str, int, int)
+        (label, first N, last N) of every stretch, in order of decreasing energy.
+    crossover_temperatures : tuple of float
+        T between consecutive stretches (units of D): the geometric mean of
+        T_N = ω_N/β̄ at the last iteration of one stretch and the first of the next.
+    phase_shift : float
+        Total phase shift per spin δ/π of a final Fermi-liquid (or underscreened)
+        fixed point, from its last iterations; NaN otherwise.
+    first_iteration, last_iteration : int
+        The iterations of the flow (for "N ≤ …" and "N ≥ …" in the text).
+    """
+
+    sequence: tuple
+    crossover_temperatures: tuple
+    phase_shift: float
+    first_iteration: int
+    last_iteration: int
+
+    @property
+    def final(self) -> str:
+        """Label of the last fixed point, "" when none was identified or the flow ends in a crossover."""
+        if not self.sequence:
+            return ""
+        lab, _, b = self.sequence[-1]
+        return lab if b >= self.last_iteration - 2 else ""
+
+    def text(self) -> str:
+        """e.g. ``free-orbital (N ≤ 8) → local-moment (14–30) → strong-coupling (N ≥ 42)``."""
+        return format_sequence(self.sequence, self.first_iteration, self.last_iteration, self.phase_shift)
+
+
+def summarize_fixed_points(flow: FixedPointFlow, temperatures, min_run: int = 3) -> FixedPointSummary:
+    """Sequence of fixed points, crossover temperatures and final phase shift of a labelled flow.
+
+    Parameters
+    ----------
+    flow : FixedPointFlow
+    temperatures : ndarray (I,)
+        T_N = ω_N/β̄ of every iteration (units of D).
+    min_run : int
+        Shortest stretch (iterations) that counts as a fixed point.
+    """
+    T = np.asarray(temperatures, float)
+    it = np.asarray(flow.iteration, int)
+    seq = fixed_point_sequence(it, flow.label, min_run)
+    pos = {int(n): i for i, n in enumerate(it)}
+    cross = tuple(float(math.sqrt(T[pos[a[2]]] * T[pos[b[1]]])) for a, b in zip(seq[:-1], seq[1:]))
+    shift = math.nan
+    if seq and seq[-1][2] >= it[-1] - 2:
+        tail = np.asarray(flow.phase_shift, float)[-2:]
+        tail = tail[np.isfinite(tail)]
+        if tail.size:
+            shift = float(tail.mean())
+    compared = np.flatnonzero(np.isfinite(np.asarray(flow.error, float)))
+    return FixedPointSummary(sequence=tuple(seq), crossover_temperatures=cross, phase_shift=shift,
+                             first_iteration=int(it[compared[0]]) if compared.size else 0,
+                             last_iteration=int(it[-1]) if it.size else 0)
