@@ -333,7 +333,6 @@ def _centroid_mismatch(E, Q, S, abelian, top, cE, cQ, cS, margin=0.3):
     cmult = np.ones(cE.size, int) if abelian else cS + 1
     pairs = []                                   # (candidate energy, run centroid or None, is ground)
     for q in sorted(set(Q.tolist()) | set(cQ[cE <= top].tolist())):
-        run = np.repeat(np.sort(E[Q == q]), 1) if abelian else None
         sel = Q == q
         order = np.argsort(E[sel], kind="stable")
         states = np.repeat(E[sel][order], mult[sel][order])
@@ -343,16 +342,14 @@ def _centroid_mismatch(E, Q, S, abelian, top, cE, cQ, cS, margin=0.3):
         clusters = [(float(ce[keys == k][0]), int(cm[keys == k].sum())) for k in np.unique(keys)]
         pos = 0
         for e, n in clusters:
-            if e > top - margin and pos >= np.count_nonzero(states <= top):
+            if e > top + margin:
                 break
-            if pos + n <= states.size:
-                pairs.append((e, float(states[pos:pos + n].mean()), e == 0.0))
-            else:
-                pairs.append((e, None, e == 0.0))
+            good = pos + n <= states.size
+            if good or e <= top - margin:       # near the window edge only complete clusters count
+                pairs.append((e, float(states[pos:pos + n].mean()) if good else None, e == 0.0))
             pos += n
-        del run
-        left = np.count_nonzero(states[pos:] <= top - margin) if pos < states.size else 0
-        pairs.extend([(math.inf, None, False)] * int(left))
+        left = int(np.count_nonzero(states[pos:] <= top - margin)) if pos < states.size else 0
+        pairs.extend([(math.inf, None, False)] * left)
     ground = [c for e, c, g in pairs if g and c is not None]
     if not ground:
         return math.inf
@@ -458,11 +455,13 @@ def _two_channel_mismatch(E, Q, S, abelian, n_compare):
     if not np.any(sel):
         return math.inf
     unit = float(np.min(E[sel])) / 0.125
-    if unit <= 0:
+    if unit < 0.4:            # the 1/8 level must be a real gap (≥ 0.05 ω_N), not a degeneracy
         return math.inf
     a, b, c = _expand(cE0 * unit, cQ, cS, abelian)
-    nn = int(np.count_nonzero(np.asarray(E)[ok] < unit * 0.8))
-    return spectrum_mismatch(E, Q, S, a, b, c, min(n_compare, max(nn, 3))) / unit
+    nn = int(np.count_nonzero(np.asarray(E)[ok] < unit * 1.05))
+    if nn < 8:
+        return math.inf
+    return spectrum_mismatch(E, Q, S, a, b, c, min(n_compare, nn)) / unit
 
 
 #: A local moment is approached only logarithmically (the exchange is marginal; Wilson 1975), so its
@@ -518,7 +517,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
         Largest RMS mismatch for the conformal two-channel candidate, in units
         of the fitted conformal energy unit.
     n_compare : int
-        Number of lowest run levels compared (multiplets; three times as many
+        Number of lowest run levels compared (multiplets; twice as many
         states in abelian mode).
 
     Returns
@@ -530,7 +529,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
     charge = np.asarray(charge)
     twice_spin = np.asarray(twice_spin)
     if abelian:
-        n_compare = 3 * n_compare
+        n_compare = 2 * n_compare
     cands = _candidates(twice_impurity_spin, n_channels, charged)
     I = iteration.size
     last = int(iteration.max()) if I else 0
