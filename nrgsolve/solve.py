@@ -329,7 +329,8 @@ def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
         charged=imp.model in ("anderson", "resonant-level"),
         twice_impurity_spin=int(round(2 * imp.spin)) if imp.model == "spin-kondo" else 1,
         n_channels=2 if imp.model == "two-channel-kondo" else 1, abelian=spec.run.symmetry == "abelian",
-        rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
+        rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath),
+        channel_charge=fl.channel_charge)
     temps = np.array([energy_scale(int(n), d.Lambda, twist.z, D, d.scheme) for n in fl.iteration]) / spec.run.beta_bar
     return labelled, summarize_fixed_points(labelled, temps)
 

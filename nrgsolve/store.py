@@ -25,7 +25,8 @@ Layout (units in each dataset's ``units`` attribute; see docs/results.md):
   ``/flow/fixed_point_error`` (ω_N), ``/flow/phase_shift`` (π) — twist z = 1;
   ``/summary`` attributes ``fixed_points``, ``fixed_point_first_iteration``,
   ``fixed_point_last_iteration``, ``crossover_temperatures`` (D),
-  ``final_fixed_point``, ``phase_shift`` (π), ``fixed_point_text``.  Absent
+  ``final_fixed_point``, ``phase_shift`` (π), ``screening_channel``,
+  ``fixed_point_text``; ``/flow/channel_charge`` (two channels).  Absent
   in files written before they existed.
 * ``/spectral/`` (runs with a [spectral] table): ``omega`` (D), ``temperature`` (D),
   ``A`` (temperatures × ω in su2 mode; spin × temperatures × ω, spin = up, down,
@@ -159,6 +160,8 @@ def _write_flow(g, flow):
     _ds(f, "charge", flow.charge, "electrons from half filling")
     _ds(f, "twice_spin", flow.twice_spin, "2S (su2) or 2S_z (abelian)")
     _ds(f, "degeneracy", flow.degeneracy, "states")
+    if getattr(flow, "channel_charge", None) is not None:
+        _ds(f, "channel_charge", flow.channel_charge, "electrons from half filling, per channel")
     d = g.create_group("diagnostics")
     _ds(d, "iteration", flow.iteration, "1")
     _ds(d, "kept_states", flow.kept_states, "states")
@@ -251,6 +254,7 @@ def _write_fixed_points(h, result):
     a["crossover_temperatures"] = np.array(summ.crossover_temperatures or [np.nan], dtype=float)
     a["final_fixed_point"] = summ.final
     a["phase_shift"] = float(summ.phase_shift)
+    a["screening_channel"] = int(summ.screening_channel)
     a["fixed_point_text"] = summ.text()
 
 

@@ -169,13 +169,17 @@ def test_two_channel_kondo_ends_at_the_two_channel_fixed_point():
 
 
 @pytest.mark.slow
-def test_unequal_two_channel_kondo_ends_at_strong_coupling():
-    """J_1 ≠ J_2: the channel asymmetry is relevant and the stronger channel screens the spin alone,
-    a Fermi liquid (Nozières & Blandin, J. Phys. (Paris) 41, 193 (1980), from memory).  The stored levels
-    carry only the total charge, so which channel screens is not checked here."""
-    r = _run(_toml('model = "two-channel-kondo"\nexchange = 0.3\nexchange_second_channel = 0.2', 1e-10,
+@pytest.mark.parametrize("j1, j2, channel", [(0.3, 0.2, 1), (0.2, 0.3, 2)])
+def test_unequal_two_channel_kondo_ends_at_strong_coupling_in_the_stronger_channel(j1, j2, channel):
+    """J_1 ≠ J_2: the channel asymmetry is relevant and the more strongly coupled channel screens the
+    spin alone, a Fermi liquid: that channel's chain loses site 0, the other stays free (Nozières &
+    Blandin, J. Phys. (Paris) 41, 193 (1980); Affleck, Ludwig, Pang & Cox, Phys. Rev. B 45, 7918 (1992);
+    both from memory)."""
+    r = _run(_toml(f'model = "two-channel-kondo"\nexchange = {j1}\nexchange_second_channel = {j2}', 1e-10,
                    kept=400))
-    assert r.fixed_points[1].final == "strong-coupling"
+    summ = r.fixed_points[1]
+    assert summ.final == "strong-coupling"
+    assert summ.screening_channel == channel
     assert "two-channel" not in _labels(r)
 
 

@@ -72,6 +72,7 @@ TWO_CHANNEL_LEVELS = (
     (1.0, 0, 1, 5), (1.0, 0, 3, 1), (1.0, 2, 1, 3), (1.0, -2, 1, 3),
 )
 
+_CHANNEL_CODE = 1000   # two channels: a level's charge code is 1000 Q_1 + Q_2
 _DROP = 1e4          # single-particle levels beyond ±_DROP ω_n are frozen
 _E_WINDOW = 4.5      # many-body window above the ground state (units of ω_N)
 _UNMATCHED = 1.0     # mismatch charged for a level without partner (units of ω_N)
@@ -383,7 +384,8 @@ def _candidates(twice_spin: int, n_channels: int, charged: bool):
     c = []
     if n_channels == 2:
         c.append(_Candidate("local-moment", (0, 0), ((0, twice_spin),)))
-        c.append(_Candidate("strong-coupling", (1, 0), ((0, 0),)))
+        c.append(_Candidate("strong-coupling", (1, 0), ((0, 0),)))      # channel 1 screens the spin
+        c.append(_Candidate("strong-coupling", (0, 1), ((0, 0),)))      # channel 2 screens the spin
         return c
     if charged:
         c.append(_Candidate("free-orbital", (0,), ((-1, 0), (0, 1), (1, 0)), True))
@@ -429,6 +431,9 @@ class FixedPointFlow:
         states at the Fermi level; NaN otherwise.
     candidates : dict
         label -> ndarray (I,): the smallest mismatch of each candidate kind.
+    screening_channel : ndarray (I,)
+        Two channels with channel charges: the channel (1 or 2) of the best
+        strong-coupling candidate; 0 otherwise.
     """
 
     iteration: np.ndarray
@@ -436,6 +441,7 @@ class FixedPointFlow:
     error: np.ndarray
     phase_shift: np.ndarray
     candidates: dict = field(default_factory=dict)
+    screening_channel: np.ndarray | None = None
 
 
 def _theta_potential(theta, rho0, scale):
@@ -481,8 +487,8 @@ def _tolerance(label, tolerance, two_channel_tolerance):
 def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping, scales, *,
                           charged: bool, twice_impurity_spin: int = 1, n_channels: int = 1,
                           abelian: bool = False, rho0: float = 0.0, particle_hole_symmetric: bool = False,
-                          tolerance: float = 0.06,
-                          two_channel_tolerance: float = 0.1, n_compare: int = 12) -> FixedPointFlow:
+                          tolerance: float = 0.06, two_channel_tolerance: float = 0.1, n_compare: int = 12,
+                          channel_charge=None) -> FixedPointFlow:
     """Label every iteration of a flow with the best-matching fixed point.
 
     Parameters
@@ -519,6 +525,9 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
     n_compare : int
         Number of lowest run levels compared (multiplets; twice as many
         states in abelian mode).
+    channel_charge : ndarray (I, L, 2), optional
+        Charge of each channel of each level (two channels): then the
+        strong-coupling candidates tell which channel screens the spin.
 
     Returns
     -------
@@ -528,6 +537,13 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
     energy = np.asarray(energy, float)
     charge = np.asarray(charge)
     twice_spin = np.asarray(twice_spin)
+    weights = (1,) * n_channels               # charge code of a level: Σ_k weight_k Q_k
+    total_charge = charge
+    if channel_charge is not None and n_channels == 2:
+        weights = (_CHANNEL_CODE, 1)
+        channel_charge = np.asarray(channel_charge, int)
+        charge = channel_charge[..., 0] * _CHANNEL_CODE + channel_charge[..., 1]
+    screening = np.zeros(iteration.size, int)
     if abelian:
         n_compare = 2 * n_compare
     cands = _candidates(twice_impurity_spin, n_channels, charged)
@@ -562,10 +578,11 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
         ecut = top + 1.0
         cache = {}
 
-        def chain_part(key, channel):
-            if key not in cache:
-                cache[key] = chain_multiplets(channel, ecut)
-            return cache[key]
+        def chain_part(key, channel, weight=1):
+            if (key, weight) not in cache:
+                e, q, sp = chain_multiplets(channel, ecut)
+                cache[(key, weight)] = (e, q * weight, sp)
+            return cache[(key, weight)]
 
         def error(c, ch0, key0):
             parts = []
@@ -575,7 +592,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
                 if k == 0 and c.fit_potential:
                     parts.append(chain_part(key0, ch0))
                 else:
-                    parts.append(chain_part(("free", f), free[f][N]))
+                    parts.append(chain_part(("free", f), free[f][N], weights[k]))
             m = _impurity(c.impurity)
             for p in parts:
                 m = couple(m, p, ecut)
@@ -586,7 +603,10 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
 
         for c in cands:
             if not c.fit_potential:
-                per[c.label][i] = min(per[c.label][i], error(c, None, None))
+                err = error(c, None, None)
+                if c.label == "strong-coupling" and n_channels == 2 and err < per[c.label][i]:
+                    screening[i] = c.chains.index(1) + 1
+                per[c.label][i] = min(per[c.label][i], err)
                 continue
             known = {}
 
@@ -626,7 +646,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
                     fl_err[i], fl_shift[i] = best, delta
             per[label][i] = min(per[label][i], best)
         if n_channels == 2:
-            per["two-channel"][i] = _two_channel_mismatch(En, Qn, Sn, abelian, n_compare)
+            per["two-channel"][i] = _two_channel_mismatch(En, total_charge[i], Sn, abelian, n_compare)
     labels, errors = [], np.full(I, np.inf)
     shift = np.full(I, np.nan)
     for i in range(I):
@@ -639,7 +659,10 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
                 shift[i] = fl_shift[i]
         else:
             labels.append("")
-    return FixedPointFlow(iteration=iteration, label=labels, error=errors, phase_shift=shift, candidates=per)
+    if channel_charge is None:
+        screening[:] = 0                      # without channel charges the two channels look alike
+    return FixedPointFlow(iteration=iteration, label=labels, error=errors, phase_shift=shift, candidates=per,
+                          screening_channel=screening)
 
 
 # --------------------------------------------------------------------------- #
@@ -714,6 +737,9 @@ class FixedPointSummary:
         fixed point, from its last iterations; NaN otherwise.
     first_iteration, last_iteration : int
         The iterations of the flow (for "N ≤ …" and "N ≥ …" in the text).
+    screening_channel : int
+        Two channels: the channel (1 or 2) that screens the spin at a final
+        strong-coupling fixed point; 0 otherwise or when unknown.
     """
 
     sequence: tuple
@@ -721,6 +747,7 @@ class FixedPointSummary:
     phase_shift: float
     first_iteration: int
     last_iteration: int
+    screening_channel: int = 0
 
     @property
     def final(self) -> str:
@@ -732,7 +759,10 @@ class FixedPointSummary:
 
     def text(self) -> str:
         """e.g. ``free-orbital (N ≤ 8) → local-moment (14–30) → strong-coupling (N ≥ 42)``."""
-        return format_sequence(self.sequence, self.first_iteration, self.last_iteration, self.phase_shift)
+        text = format_sequence(self.sequence, self.first_iteration, self.last_iteration, self.phase_shift)
+        if self.screening_channel:
+            text += f" [channel {self.screening_channel} screens the spin]"
+        return text
 
 
 def summarize_fixed_points(flow: FixedPointFlow, temperatures, min_run: int = 3) -> FixedPointSummary:
@@ -758,6 +788,10 @@ def summarize_fixed_points(flow: FixedPointFlow, temperatures, min_run: int = 3)
         if tail.size:
             shift = float(tail.mean())
     compared = np.flatnonzero(np.isfinite(np.asarray(flow.error, float)))
+    channel = 0
+    if seq and seq[-1][0] == "strong-coupling" and flow.screening_channel is not None:
+        channel = int(np.asarray(flow.screening_channel)[-1])
     return FixedPointSummary(sequence=tuple(seq), crossover_temperatures=cross, phase_shift=shift,
                              first_iteration=int(it[compared[0]]) if compared.size else 0,
-                             last_iteration=int(it[-1]) if it.size else 0)
+                             last_iteration=int(it[-1]) if it.size else 0,
+                             screening_channel=channel if seq and seq[-1][2] >= it[-1] - 2 else 0)
