@@ -256,7 +256,8 @@ def test_old_files_without_fixed_points_still_open(tmp_path, capsys):
         for name in ("fixed_point", "fixed_point_error", "phase_shift"):
             del h["flow"][name]
         for name in ("fixed_points", "fixed_point_first_iteration", "fixed_point_last_iteration",
-                     "crossover_temperatures", "final_fixed_point", "phase_shift", "fixed_point_text"):
+                     "crossover_temperatures", "final_fixed_point", "phase_shift", "screening_channel",
+                     "fixed_point_text"):
             del h["summary"].attrs[name]
     assert stored_fixed_points(read_result(out)) is None
     assert main(["inspect", str(out)]) == 0

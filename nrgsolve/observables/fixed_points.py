@@ -546,6 +546,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
     screening = np.zeros(iteration.size, int)
     if abelian:
         n_compare = 2 * n_compare
+    n_compare = max(1, min(n_compare, energy.shape[1] if energy.ndim == 2 else 0))   # run.flow_levels may be small
     cands = _candidates(twice_impurity_spin, n_channels, charged)
     I = iteration.size
     last = int(iteration.max()) if I else 0
@@ -559,8 +560,13 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
         grid[-1] = 0.5 * math.pi - 1e-7
     coarse = list(range(0, grid.size, 8)) if grid.size > 8 else list(range(grid.size))
     hint: dict = {}            # (candidate, parity) -> best grid index two iterations before
-    flows = [single_particle_flow(onsite, hopping, scales, 0, max(last, 0), _theta_potential(th, rho0, scale0))
-             for th in grid]
+    flows: dict = {}                          # grid index -> single-particle flow, computed when first needed
+
+    def flow_at(j):
+        if j not in flows:
+            flows[j] = single_particle_flow(onsite, hopping, scales, 0, max(last, 0),
+                                            _theta_potential(grid[j], rho0, scale0))
+        return flows[j]
     kinds = {c.label for c in cands} | ({"two-channel"} if n_channels == 2 else set())
     if any(c.label == "fermi-liquid" for c in cands):
         kinds |= {"strong-coupling", "frozen-impurity"}
@@ -612,7 +618,7 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
 
             def at(j):
                 if j not in known:
-                    known[j] = error(c, flows[j][N], ("grid", j))
+                    known[j] = error(c, flow_at(j)[N], ("grid", j))
                 return known[j]
             h = hint.get((id(c), N % 2))
             if h is None or grid.size <= 8:
