@@ -163,7 +163,7 @@ def test_asymmetric_anderson_phase_shift_obeys_the_friedel_sum_rule():
 def test_two_channel_kondo_ends_at_the_two_channel_fixed_point():
     """Equal couplings: overscreened non-Fermi-liquid fixed point with the conformal levels
     0, 1/8, 1/2, 5/8, 1 (Affleck & Ludwig, Nucl. Phys. B 360, 641 (1991), from memory)."""
-    r = _run(_toml('model = "two-channel-kondo"\nexchange = 0.3', 1e-10, kept=400))
+    r = _run(_toml('model = "two-channel-kondo"\nexchange = 0.3', 1e-7, kept=250))
     assert r.fixed_points[1].final == "two-channel"
     assert _labels(r)[-2:] == ["local-moment", "two-channel"]
 
@@ -175,8 +175,8 @@ def test_unequal_two_channel_kondo_ends_at_strong_coupling_in_the_stronger_chann
     spin alone, a Fermi liquid: that channel's chain loses site 0, the other stays free (Nozières &
     Blandin, J. Phys. (Paris) 41, 193 (1980); Affleck, Ludwig, Pang & Cox, Phys. Rev. B 45, 7918 (1992);
     both from memory)."""
-    r = _run(_toml(f'model = "two-channel-kondo"\nexchange = {j1}\nexchange_second_channel = {j2}', 1e-10,
-                   kept=400))
+    r = _run(_toml(f'model = "two-channel-kondo"\nexchange = {j1}\nexchange_second_channel = {j2}', 1e-7,
+                   kept=250))
     summ = r.fixed_points[1]
     assert summ.final == "strong-coupling"
     assert summ.screening_channel == channel

@@ -625,12 +625,12 @@ def identify_fixed_points(iteration, energy, charge, twice_spin, onsite, hopping
                 j = min(coarse, key=at)
             else:
                 j = h
-            for _ in range(grid.size):            # walk downhill on the fine grid, ±4 steps at a time
-                nbr = [k for k in range(j - 4, j + 5) if 0 <= k < grid.size]
-                jn = min(nbr, key=at)
-                if jn == j:
-                    break
-                j = jn
+            if at(j) < 5 * tolerance:             # walk downhill on the fine grid unless hopeless
+                for _ in range(grid.size):
+                    jn = min((k for k in range(j - 2, j + 3) if 0 <= k < grid.size), key=at)
+                    if jn == j:
+                        break
+                    j = jn
             best_th, best = float(grid[j]), float(known[j])
             hint[(id(c), N % 2)] = j if best < 3 * tolerance else None
             refine = c.charge_offset is not None and i >= I - 2 and not particle_hole_symmetric
