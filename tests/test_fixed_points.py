@@ -159,6 +159,29 @@ def test_asymmetric_anderson_phase_shift_obeys_the_friedel_sum_rule():
     assert summ.phase_shift == pytest.approx(n_d / 2, rel=0.02)
 
 
+def test_resonant_level_phase_shift_is_the_exact_one():
+    """U = 0: the level ε_d > 0 hybridized with a flat band has the exact Fermi-level phase shift
+    δ = arctan(Γ/ε_d) (the real part of the flat-band self-energy vanishes at ω = 0; textbook,
+    exact).  The run goes from the free orbital to a generic phase-shifted Fermi liquid."""
+    G, eps = 1e-4, 2e-4
+    r = _run(_toml(f'model = "resonant-level"\nhybridization = {G}\nlevel = {eps}', 1e-9, scheme="adaptive"))
+    summ = r.fixed_points[1]
+    assert _labels(r) == ["free-orbital", "fermi-liquid"]
+    assert summ.phase_shift == pytest.approx(math.atan(G / eps) / math.pi, rel=0.01)
+
+
+def test_mixed_valence_anderson_model_passes_the_valence_fluctuation_fixed_point():
+    """ε_d = 0, U ≫ T ≫ Γ: the empty and singly occupied impurity states are degenerate and decoupled
+    (valence fluctuation); below Γ a Fermi liquid with δ/π = ⟨n_d⟩/2 (Krishna-murthy, Wilkins &
+    Wilson 1980; Langreth 1966).  Here ⟨n_d⟩ ≈ 0.19, so δ/π ≈ 0.09: the frozen-impurity end of the line."""
+    r = _run(_toml('model = "anderson"\ninteraction = 0.3\nhybridization = 1e-5\nlevel = 0.0', 1e-9,
+                   scheme="adaptive"))
+    summ = r.fixed_points[1]
+    assert _labels(r) == ["valence-fluctuation", "frozen-impurity"]
+    n_d = float(r.thermo.extra["occupation"][0])
+    assert summ.phase_shift == pytest.approx(n_d / 2, rel=0.02)
+
+
 @pytest.mark.slow
 def test_two_channel_kondo_ends_at_the_two_channel_fixed_point():
     """Equal couplings: overscreened non-Fermi-liquid fixed point with the conformal levels
