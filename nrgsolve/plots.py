@@ -168,10 +168,11 @@ def _shade_fixed_points(axes, result: StoredResult):
     if fp is None:
         return
     for a in axes:
+        lo, hi = a.get_xlim()
         for lab, first, last in fp["sequence"]:
             color = _FIXED_POINT_COLORS.get(lab, "0.5")
             a.axvspan(first - 0.5, last + 0.5, color=color, alpha=0.12, lw=0)
-            a.text(max(first - 0.4, a.get_xlim()[0]), 0.98, lab, transform=a.get_xaxis_transform(),
+            a.text(max(first - 0.4, lo + 0.01 * (hi - lo)), 0.98, lab, transform=a.get_xaxis_transform(),
                    ha="left", va="top", fontsize=7, color=color, clip_on=True)
 
 
