@@ -303,7 +303,11 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
-    fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
+    try:
+        fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:   # the labels must never cost the run
+        fixed = None
+        warnings.append(f"fixed-point analysis of the flow failed ({exc}); no fixed points stored")
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
                      wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
                      transport=transport, fixed_points=fixed)
