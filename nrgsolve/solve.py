@@ -316,8 +316,10 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
 def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
     """Label the flow of one twist with its fixed points (see :mod:`nrgsolve.observables.fixed_points`).
 
-    The candidate spectra come from the twist's own chain; ρ₀ = g(0)/(π · coupling_sq)
-    is the density of states of chain site 0 at the Fermi level (1/D).
+    The candidate spectra come from the twist's own chain.  ρ₀ = g(0)/(A · ∫g dε) is the
+    effective density of states of chain site 0 at the Fermi level (1/D), with A = A_Λ for
+    Wilson's scheme (whose discretized hybridization is g/A_Λ, whether or not the coupling is
+    corrected) and 1 for the adaptive one; it converts a site-0 potential into a phase shift.
 
     Returns
     -------
@@ -327,7 +329,9 @@ def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
     d, imp, fl = spec.discretization, spec.impurity, twist.flow
     D = bath.half_bandwidth
     scales = np.array([energy_scale(n, d.Lambda, twist.z, D, d.scheme) for n in range(len(twist.onsite))])
-    rho0 = float(bath.shape_function(0.0)) / (math.pi * twist.coupling_sq)
+    from .discretize import wilson_correction_factor
+    A = wilson_correction_factor(d.Lambda) if d.scheme == "wilson" else 1.0
+    rho0 = float(bath.shape_function(0.0)) / (A * bath.integral(-D, D))
     labelled = identify_fixed_points(
         fl.iteration, fl.energy, fl.charge, fl.twice_spin, twist.onsite, twist.hopping, scales,
         charged=imp.model in ("anderson", "resonant-level"),

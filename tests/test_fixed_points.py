@@ -21,8 +21,8 @@ def _run(text):
 
 
 def _toml(impurity: str, lowest: float, kept: int = 300, scheme: str = "wilson", bath: str = "",
-          extra_run: str = "") -> str:
-    corr = "wilson_correction = true\n" if scheme == "wilson" else ""
+          extra_run: str = "", correction: bool = True) -> str:
+    corr = f"wilson_correction = {'true' if correction else 'false'}\n" if scheme == "wilson" else ""
     return (f"[impurity]\n{impurity}\n{bath}\n[discretization]\nLambda = 3.0\ntwists = 1\nscheme = \"{scheme}\"\n"
             f"{corr}\n[run]\nkept_states = {kept}\nlowest_temperature = {lowest}\n{extra_run}")
 
@@ -147,11 +147,14 @@ def test_symmetric_anderson_model_passes_free_orbital_local_moment_strong_coupli
 
 
 @pytest.mark.slow
-def test_asymmetric_anderson_phase_shift_obeys_the_friedel_sum_rule():
+@pytest.mark.parametrize("scheme, correction", [("adaptive", False), ("wilson", False)])
+def test_asymmetric_anderson_phase_shift_obeys_the_friedel_sum_rule(scheme, correction):
     """At T = 0 the phase shift per spin is δ = π⟨n_d⟩/2 (Friedel sum rule; Langreth, Phys. Rev. 150,
-    516 (1966)): the fitted phase shift of the final Fermi liquid against ⟨n_d⟩ of the same run, 2 %."""
+    516 (1966)): the fitted phase shift of the final Fermi liquid against ⟨n_d⟩ of the same run, 2 %.
+    Wilson's scheme without the A_Λ correction checks that the phase shift is read with the chain's own
+    density of states (g/A_Λ), not the continuum's."""
     r = _run(_toml('model = "anderson"\ninteraction = 1.5e-3\nhybridization = 1e-4\nlevel = -4e-4', 1e-11,
-                   scheme="adaptive"))
+                   scheme=scheme, correction=correction))
     summ = r.fixed_points[1]
     assert summ.final == "strong-coupling"
     n_d = float(r.thermo.extra["occupation"][0])

@@ -14,8 +14,9 @@ independently of the NRG engine from the same Wilson chain:
   scattering on site 0 is fitted);
 * Fermi liquids: chain 0..N with a potential scattering V on site 0 and the
   impurity absorbed (its charge offset q = ±1).  The phase shift at the
-  Fermi level is tan δ₀ = −π ρ₀ V (ρ₀ the density of states of site 0 at
-  ε = 0), and the total phase shift per spin is δ/π = δ₀/π + (q + 1)/2, the
+  Fermi level is tan δ₀ = −π ρ₀ V (ρ₀ the effective density of states of
+  site 0 at ε = 0, given by the caller: for Wilson's scheme the discretized
+  hybridization is g/A_Λ, and ρ₀ must include that factor), and the total phase shift per spin is δ/π = δ₀/π + (q + 1)/2, the
   Friedel sum rule's displaced charge per spin (Langreth 1966).  Labelled
   ``strong-coupling`` for |δ/π − ½| ≤ 0.1 (δ = π/2 is the chain with site 0
   removed), ``frozen-impurity`` for δ/π ≤ 0.1 or ≥ 0.9 and ``fermi-liquid``
