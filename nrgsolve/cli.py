@@ -72,6 +72,8 @@ def cmd_run(args) -> int:
             print(line)
         if result.checks:
             print(f"uncertainties from two checking runs: {'; '.join(result.checks)}")
+        if result.fixed_points is not None:
+            print(f"fixed points: {result.fixed_points[1].text()}")
         print(f"lowest temperature reached: {s.lowest_temperature_reached:.3g} D")
         print(f"wall time: {result.wall_seconds:.1f} s")
         for w in result.warnings:

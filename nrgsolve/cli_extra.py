@@ -78,10 +78,10 @@ def _plot(args, files, default_name, draw) -> int:
 
 
 def cmd_plot_flow(args) -> int:
-    """Draw the level flow of one result file."""
-    from .plots import plot_flow
-    return _plot(args, [args.file], f"{Path(args.file).stem}_flow.png",
-                 lambda r: plot_flow(r[0], levels=args.levels))
+    """Draw the level flow of one result file, or of several side by side."""
+    from .plots import plot_flows
+    name = f"{Path(args.files[0]).stem}_flow.png" if len(args.files) == 1 else "flows.png"
+    return _plot(args, args.files, name, lambda r: plot_flows(r, levels=args.levels))
 
 
 def cmd_plot_thermo(args) -> int:
@@ -147,11 +147,12 @@ def add_commands(subparsers) -> None:
     p = subparsers.add_parser("plot", help="draw figures from result files")
     kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo,spectral,conductance}", parser_class=type(p))
     kinds.required = True
-    f = kinds.add_parser("flow", help="energy-level flow of one run (even and odd iterations)")
-    f.add_argument("file", help="result file (.h5)")
+    f = kinds.add_parser("flow", help="energy-level flow of one or more runs (even and odd iterations), "
+                                      "fixed points shaded")
+    f.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5); several are drawn side by side")
     f.add_argument("--levels", type=_positive_int("--levels"), default=12,
                    help="lowest levels drawn per iteration (default 12)")
-    _image_options(f, "<file name>_flow.png")
+    _image_options(f, "<file name>_flow.png, or flows.png for several files")
     f.set_defaults(func=cmd_plot_flow)
     t = kinds.add_parser("thermo", help="impurity thermodynamics of one or more runs on a log-T axis")
     t.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")

@@ -17,7 +17,7 @@ import numpy as np
 from .config import parse_config
 from .errors import NrgInputError
 from .solve import DISCARDED_WEIGHT_LIMIT
-from .store import StoredResult
+from .store import StoredResult, stored_fixed_points
 from .uncertainty import HEADLINE, format_with_error
 
 __all__ = ["DISCARDED_WEIGHT_LIMIT", "LOW_TEMPERATURE_SLACK", "convergence", "derived_warnings", "describe",
@@ -143,6 +143,19 @@ def method_lines(attrs: dict) -> list[str]:
             "Wilson number: 0.4128 (file format 1: Wilson's numerical estimate)"]
 
 
+def _fixed_point_lines(stored: StoredResult) -> list[str]:
+    """The fixed-point sequence and crossover temperatures (nothing for older files)."""
+    fp = stored_fixed_points(stored)
+    if fp is None:
+        return ["  fixed points: not stored (file older than the fixed-point analysis)"]
+    lines = [f"  fixed points: {fp['text'] or 'no fixed point identified'}"]
+    if fp["crossover_temperatures"]:
+        pairs = zip(fp["sequence"][:-1], fp["sequence"][1:], fp["crossover_temperatures"])
+        lines.append("  crossover temperatures: "
+                     + ", ".join(f"{a[0]} → {b[0]} at {T:.3g} D" for a, b, T in pairs))
+    return lines
+
+
 def describe(stored: StoredResult) -> str:
     """Multi-line text: provenance, config, summary, convergence and warnings of a result file."""
     a = stored.attrs
@@ -171,6 +184,7 @@ def describe(stored: StoredResult) -> str:
              *([f"  uncertainties from: {s['error_checks']}"] if s.get("error_checks") else []),
              f"  lowest temperature reached: {_fmt(s.get('lowest_temperature_reached'), ' D')}",
              f"  wall time: {_fmt(s.get('wall_seconds'), ' s')}",
+             *_fixed_point_lines(stored),
              "",
              "convergence",
              f"  max discarded weight: {conv['max_discarded_weight']:.3g}",

@@ -23,7 +23,7 @@ from .config import parse_config
 from .errors import NrgInputError
 from .store import StoredResult, atomic_path, check_output_path
 
-__all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_thermo",
+__all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_flows", "plot_thermo",
            "differing_parameters", "run_labels", "save_figure", "plot_spectral", "plot_conductance"]
 
 #: quantity name -> (dataset in /thermodynamics, axis label with units)
@@ -149,8 +149,54 @@ def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None
         a.set_xlim(N[rows[0]], N[last] + 0.22 * max(N[last] - N[rows[0]], 1))
         a.grid(alpha=0.25)
     axes[0].set_ylabel(r"$E/\omega_N$ (from the ground state)")
+    _shade_fixed_points(axes, result)
     model = result.attrs.get("model", "")
     fig.suptitle(f"{Path(result.path).stem}: level flow, {model}, labels ({'Q'}, ${spin_name}$)", fontsize=10)
+    return fig
+
+
+#: Shading colour of each fixed point in the flow plot.
+_FIXED_POINT_COLORS = {"free-orbital": "C0", "valence-fluctuation": "C4", "local-moment": "C1",
+                       "strong-coupling": "C2", "fermi-liquid": "C8", "frozen-impurity": "C7",
+                       "underscreened": "C5", "two-channel": "C3"}
+
+
+def _shade_fixed_points(axes, result: StoredResult):
+    """Shade and name the iteration range of every fixed point (files without them: nothing)."""
+    from .store import stored_fixed_points
+    fp = stored_fixed_points(result)
+    if fp is None:
+        return
+    for a in axes:
+        lo, hi = a.get_xlim()
+        for lab, first, last in fp["sequence"]:
+            color = _FIXED_POINT_COLORS.get(lab, "0.5")
+            a.axvspan(first - 0.5, last + 0.5, color=color, alpha=0.12, lw=0)
+            a.text(max(first - 0.4, lo + 0.01 * (hi - lo)), 0.98, lab, transform=a.get_xaxis_transform(),
+                   ha="left", va="top", fontsize=7, color=color, clip_on=True)
+
+
+def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8):
+    """Level flows of several runs side by side (one column per run: even N above, odd N below).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if not results:
+        raise NrgInputError("plot flow: no result files given")
+    if len(results) == 1:
+        return plot_flow(results[0], levels=levels, labelled=labelled)
+    n = len(results)
+    fig, axes = new_figure(2, n, figsize=(4.6 * n, 7.2), sharey=True)
+    names = run_labels(results)
+    for k, r in enumerate(results):
+        plot_flow(r, levels=levels, labelled=labelled, ax=(axes[0][k], axes[1][k]))
+        stem = Path(r.path).stem
+        title = stem if names[k] == stem else f"{stem} ({names[k]})"
+        axes[0][k].set_title(f"{title}: even N", fontsize=9)
+        axes[1][k].set_title("odd N", fontsize=9)
+    fig.suptitle("level flows, labels (Q, S or S_z); shaded: fixed points", fontsize=10)
     return fig
 
 

@@ -65,6 +65,7 @@ class RunResult:
     transport: object = None         # ConductanceCurve when spectral.conductance_temperatures is given
     uncertainties: dict = field(default_factory=dict)   # headline name -> uncertainty (run.error_estimate)
     checks: tuple = ()               # descriptions of the checking runs behind the uncertainties
+    fixed_points: object = None      # (FixedPointFlow, FixedPointSummary) of the twist z = 1
 
 
 def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
@@ -358,9 +359,44 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
+    try:
+        fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:   # the labels must never cost the run
+        fixed = None
+        warnings.append(f"fixed-point analysis of the flow failed ({exc}); no fixed points stored")
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
                      wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
-                     transport=transport)
+                     transport=transport, fixed_points=fixed)
+
+
+def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
+    """Label the flow of one twist with its fixed points (see :mod:`nrgsolve.observables.fixed_points`).
+
+    The candidate spectra come from the twist's own chain.  ρ₀ = g(0)/(A · ∫g dε) is the
+    effective density of states of chain site 0 at the Fermi level (1/D), with A = A_Λ for
+    Wilson's scheme (whose discretized hybridization is g/A_Λ, whether or not the coupling is
+    corrected) and 1 for the adaptive one; it converts a site-0 potential into a phase shift.
+
+    Returns
+    -------
+    (FixedPointFlow, FixedPointSummary)
+    """
+    from .observables.fixed_points import identify_fixed_points, summarize_fixed_points
+    d, imp, fl = spec.discretization, spec.impurity, twist.flow
+    D = bath.half_bandwidth
+    scales = np.array([energy_scale(n, d.Lambda, twist.z, D, d.scheme) for n in range(len(twist.onsite))])
+    from .discretize import wilson_correction_factor
+    A = wilson_correction_factor(d.Lambda) if d.scheme == "wilson" else 1.0
+    rho0 = float(bath.shape_function(0.0)) / (A * bath.integral(-D, D))
+    labelled = identify_fixed_points(
+        fl.iteration, fl.energy, fl.charge, fl.twice_spin, twist.onsite, twist.hopping, scales,
+        charged=imp.model in ("anderson", "resonant-level"),
+        twice_impurity_spin=int(round(2 * imp.spin)) if imp.model == "spin-kondo" else 1,
+        n_channels=2 if imp.model == "two-channel-kondo" else 1, abelian=spec.run.symmetry == "abelian",
+        rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath),
+        channel_charge=fl.channel_charge)
+    temps = np.array([energy_scale(int(n), d.Lambda, twist.z, D, d.scheme) for n in fl.iteration]) / spec.run.beta_bar
+    return labelled, summarize_fixed_points(labelled, temps)
 
 
 def _drain(queue, progress, timeout):

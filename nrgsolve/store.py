@@ -24,6 +24,13 @@ Layout (units in each dataset's ``units`` attribute; see docs/results.md):
   ``T_chi_lowest``, ``entropy_lowest``,
   ``lowest_temperature_reached`` (NaN means "not reached"), ``wall_seconds``,
   ``warnings``; with error estimates ``<name>_error`` (same unit) and ``error_checks``.
+* ``/flow/fixed_point`` (label per iteration, "" for a crossover),
+  ``/flow/fixed_point_error`` (ω_N), ``/flow/phase_shift`` (π) — twist z = 1;
+  ``/summary`` attributes ``fixed_points``, ``fixed_point_first_iteration``,
+  ``fixed_point_last_iteration``, ``crossover_temperatures`` (D),
+  ``final_fixed_point``, ``phase_shift`` (π), ``screening_channel``,
+  ``fixed_point_text``; ``/flow/channel_charge`` (two channels).  Absent
+  in files written before they existed.
 * ``/spectral/`` (runs with a [spectral] table): ``omega`` (D), ``temperature`` (D),
   ``A`` (temperatures × ω in su2 mode; spin × temperatures × ω, spin = up, down,
   in the abelian mode; 1/D, per spin), ``occupation`` (⟨n_d⟩ at those
@@ -52,7 +59,8 @@ from .errors import NrgInputError
 from .observables.kondo_scale import WILSON_NUMBER
 from .uncertainty import headline_values
 
-__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path"]
+__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path",
+           "stored_fixed_points"]
 
 #: 2: root attributes ``discretization_scheme``, ``thermodynamics_method``, ``wilson_number``; ``/summary``
 #: gains ``chi_zero``, ``gamma_zero``, ``T_chi_lowest``, ``entropy_lowest`` and ``<name>_error``;
@@ -160,6 +168,8 @@ def _write_flow(g, flow):
     _ds(f, "charge", flow.charge, "electrons from half filling")
     _ds(f, "twice_spin", flow.twice_spin, "2S (su2) or 2S_z (abelian)")
     _ds(f, "degeneracy", flow.degeneracy, "states")
+    if getattr(flow, "channel_charge", None) is not None:
+        _ds(f, "channel_charge", flow.channel_charge, "electrons from half filling, per channel")
     d = g.create_group("diagnostics")
     _ds(d, "iteration", flow.iteration, "1")
     _ds(d, "kept_states", flow.kept_states, "states")
@@ -238,7 +248,29 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
             s.attrs["wall_seconds"] = float(result.wall_seconds)
             s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
             _write_spectral(h, result)
+            _write_fixed_points(h, result)
     return target
+
+
+def _write_fixed_points(h, result):
+    """/flow/fixed_point, /flow/fixed_point_error, /flow/phase_shift and the /summary attributes."""
+    fixed = getattr(result, "fixed_points", None)
+    if fixed is None:
+        return
+    labelled, summ = fixed
+    f = h["flow"]
+    _ds(f, "fixed_point", np.array([x.encode() for x in labelled.label], dtype="S"), "label")
+    _ds(f, "fixed_point_error", labelled.error, "omega_N")
+    _ds(f, "phase_shift", labelled.phase_shift, "pi")
+    a = h["summary"].attrs
+    a["fixed_points"] = np.array([lab.encode() for lab, _, _ in summ.sequence] or [b""], dtype="S")
+    a["fixed_point_first_iteration"] = np.array([x for _, x, _ in summ.sequence] or [-1], dtype=int)
+    a["fixed_point_last_iteration"] = np.array([x for _, _, x in summ.sequence] or [-1], dtype=int)
+    a["crossover_temperatures"] = np.array(summ.crossover_temperatures or [np.nan], dtype=float)
+    a["final_fixed_point"] = summ.final
+    a["phase_shift"] = float(summ.phase_shift)
+    a["screening_channel"] = int(summ.screening_channel)
+    a["fixed_point_text"] = summ.text()
 
 
 def _spin_first(a):
@@ -323,3 +355,36 @@ def read_result(path: str | Path) -> StoredResult:
                                 twists, summary, warns, spectral=spectral, transport=transport)
     except (OSError, KeyError) as exc:
         raise NrgInputError(f"{p}: cannot read result file ({exc})") from None
+
+
+def _text(v) -> str:
+    return v.decode() if isinstance(v, bytes) else str(v)
+
+
+def stored_fixed_points(stored: StoredResult) -> dict | None:
+    """The fixed-point data of a stored run, or None for files written before they existed.
+
+    Returns
+    -------
+    dict or None
+        ``labels`` (list of str per iteration, "" for crossovers), ``error``
+        (ndarray, ω_N), ``iteration`` (ndarray), ``sequence`` (list of
+        (label, first N, last N)), ``crossover_temperatures`` (list, D),
+        ``final`` (str), ``phase_shift`` (float, units of π; NaN when none)
+        and ``text`` (the one-line sequence).
+    """
+    if "fixed_point" not in stored.flow or "fixed_points" not in stored.summary:
+        return None
+    s = stored.summary
+    names = [_text(x) for x in np.ravel(s["fixed_points"])]
+    first = [int(x) for x in np.ravel(s["fixed_point_first_iteration"])]
+    last = [int(x) for x in np.ravel(s["fixed_point_last_iteration"])]
+    seq = [(n, a, b) for n, a, b in zip(names, first, last) if n]
+    temps = [float(x) for x in np.ravel(s["crossover_temperatures"]) if np.isfinite(x)]
+    return {"labels": [_text(x) for x in np.ravel(stored.flow["fixed_point"])],
+            "error": np.asarray(stored.flow.get("fixed_point_error", []), float),
+            "iteration": np.asarray(stored.flow["iteration"], int),
+            "sequence": seq, "crossover_temperatures": temps,
+            "final": _text(s.get("final_fixed_point", "")),
+            "phase_shift": float(s.get("phase_shift", np.nan)),
+            "text": _text(s.get("fixed_point_text", ""))}

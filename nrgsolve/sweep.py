@@ -39,13 +39,17 @@ from .errors import NrgInputError
 from .solve import bath_from_spec, solve
 from .store import atomic_path, read_result, write_result
 
-__all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "sweep_points", "spec_to_toml",
+__all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "FIXED_POINT_COLUMNS", "sweep_points", "spec_to_toml",
            "default_folder", "point_file_name", "run_sweep", "read_index", "WorkerLost"]
 
 #: Summary attributes copied from each point file into ``index.csv``
 #: (temperatures in units of D; NaN means "not reached").
 SUMMARY_COLUMNS = ("kondo_temperature_wilson", "kondo_temperature_crossover", "wilson_ratio",
                    "lowest_temperature_reached", "wall_seconds")
+
+#: Fixed-point columns of ``index.csv``: the final fixed point of the flow (label, empty when the flow
+#: ends in a crossover or the point file predates the analysis) and its phase shift δ/π (nan when none).
+FIXED_POINT_COLUMNS = ("final_fixed_point", "phase_shift")
 
 #: Settings that do not change the result and are not compared when resuming.
 _NOT_COMPARED = {("output", "file"), ("run", "workers")}
@@ -315,6 +319,9 @@ def _row(point: SweepPoint, stored) -> dict:
     for col in SUMMARY_COLUMNS:
         v = stored.summary.get(col, math.nan)
         row[col] = float(v)
+    fp = stored.summary.get("final_fixed_point")      # absent in files older than the fixed-point analysis
+    row["final_fixed_point"] = "" if fp is None else (fp.decode() if isinstance(fp, bytes) else str(fp))
+    row["phase_shift"] = float(stored.summary.get("phase_shift", math.nan))
     row["warnings"] = " | ".join(stored.warnings)
     row["file"] = point.file_name
     return row

@@ -46,7 +46,7 @@ def solve_all(specs, processes=2):
                 os.environ[v] = old
 
 
-def config(impurity, bath="", Lambda=3.0, twists=1, kept=500, lowest=1e-10, run_extra="", disc_extra=""):
+def config(impurity, bath="", Lambda=3.0, twists=2, kept=500, lowest=1e-10, run_extra="", disc_extra=""):
     return parse_config(f"""
 [impurity]
 {impurity}

@@ -15,8 +15,8 @@ from hypothesis import assume, given, settings, strategies as st
 from nrgsolve.config import MODELS, parse_config
 from nrgsolve.errors import ConfigError, NrgInputError
 from nrgsolve.store import read_result
-from nrgsolve.sweep import (SUMMARY_COLUMNS, default_folder, read_index, run_sweep, spec_to_toml,
-                            sweep_points)
+from nrgsolve.sweep import (FIXED_POINT_COLUMNS, SUMMARY_COLUMNS, default_folder, read_index, run_sweep,
+                            spec_to_toml, sweep_points)
 
 from cli_helpers import assert_one_line_error, cli_env, listing, run_cli, tiny_kondo
 
@@ -144,7 +144,7 @@ def test_sweep_writes_one_file_per_point_and_an_index(tmp_path):
     assert sorted(p.name for p in folder.iterdir()) == ["index.csv"] + [f"point_000{i}.h5" for i in range(4)]
     rows = read_index(folder / "index.csv")
     assert list(rows[0]) == (["point", "impurity.exchange", "discretization.twists"] + list(SUMMARY_COLUMNS)
-                             + ["warnings", "file"])
+                             + list(FIXED_POINT_COLUMNS) + ["warnings", "file"])
     for i, row in enumerate(rows):
         assert int(row["point"]) == i and row["file"] == f"point_000{i}.h5"
         stored = read_result(folder / row["file"])

@@ -112,6 +112,7 @@ class IterationRecord:
     discarded_weight: float
     block_dims: np.ndarray
     diag_seconds: float = 0.0
+    channel_charge: np.ndarray | None = None     # (states, channels) charge of each channel, several channels only
 
 
 @dataclass
@@ -173,6 +174,9 @@ def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settin
     tws = np.concatenate([np.full(len(energies[L]), sym.twice_spin(L)) for L in labels])
     ssq = np.concatenate([np.full(len(energies[L]), sym.spin_square_over_three(L)) for L in labels])
     sc = {name: np.concatenate([d[L] for L in labels]) for name, d in scalars_diag.items()}
+    chq = None
+    if sym.n_channels > 1:
+        chq = np.concatenate([np.tile(np.asarray(L[:-1], dtype=int), (len(energies[L]), 1)) for L in labels])
     order = np.argsort(E, kind="stable")
     kept, ecut, nkept = kept_info
     w = mult * np.exp(-settings.beta_bar * E)
@@ -181,7 +185,8 @@ def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settin
         index=index, scale=scale, ground_energy=ground, energies=E[order], multiplicity=mult[order],
         charge=charge[order], twice_spin=tws[order], spin_sq=ssq[order],
         scalars={k: v[order] for k, v in sc.items()}, kept_states=nkept, truncation_energy=ecut,
-        discarded_weight=disc, block_dims=np.asarray(sorted(dims, reverse=True), dtype=int), diag_seconds=dsec)
+        discarded_weight=disc, block_dims=np.asarray(sorted(dims, reverse=True), dtype=int), diag_seconds=dsec,
+        channel_charge=None if chq is None else chq[order])
 
 
 def _symmetrize_charge(energies):

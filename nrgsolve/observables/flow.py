@@ -29,6 +29,8 @@ class FlowSpectrum:
         Truncation diagnostics (kept states counting 2S+1; energy in ω_N; weight fraction).
     block_dimensions : ndarray (I, B)
         Dimensions of every block, descending, zero-padded.
+    channel_charge : ndarray (I, K, C) or None
+        Charge of each of the C channels of each level (several channels only).
     """
 
     iteration: np.ndarray
@@ -40,6 +42,7 @@ class FlowSpectrum:
     truncation_energy: np.ndarray
     discarded_weight: np.ndarray
     block_dimensions: np.ndarray
+    channel_charge: np.ndarray | None = None
 
 
 def flow_spectrum(records, levels: int) -> FlowSpectrum:
@@ -51,6 +54,8 @@ def flow_spectrum(records, levels: int) -> FlowSpectrum:
     D = np.zeros((I, levels), dtype=int)
     B = max((len(r.block_dims) for r in records), default=0)
     dims = np.zeros((I, B), dtype=int)
+    C = records[0].channel_charge.shape[1] if records and records[0].channel_charge is not None else 0
+    chq = np.zeros((I, levels, C), dtype=int) if C else None
     for i, r in enumerate(records):
         k = min(levels, len(r.energies))
         E[i, :k] = r.energies[:k]
@@ -58,9 +63,11 @@ def flow_spectrum(records, levels: int) -> FlowSpectrum:
         S[i, :k] = r.twice_spin[:k]
         D[i, :k] = r.multiplicity[:k]
         dims[i, :len(r.block_dims)] = r.block_dims
+        if chq is not None:
+            chq[i, :k] = r.channel_charge[:k]
     return FlowSpectrum(
         iteration=np.array([r.index for r in records], dtype=int), energy=E, charge=Q, twice_spin=S,
         degeneracy=D, kept_states=np.array([r.kept_states for r in records], dtype=int),
         truncation_energy=np.array([r.truncation_energy for r in records], dtype=float),
         discarded_weight=np.array([r.discarded_weight for r in records], dtype=float),
-        block_dimensions=dims)
+        block_dimensions=dims, channel_charge=chq)
