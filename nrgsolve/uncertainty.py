@@ -11,10 +11,13 @@ repeating the run with only that approximation changed:
   independent of Λ, so what remains is the z-averaging residual and the
   Λ-dependence of the truncation).
 
-The uncertainty of a number x is ``|x − x_states| + |x − x_Λ|``: the two
-changes are independent, and adding rather than combining them in quadrature
-keeps the estimate on the safe side when one of them happens to be small by
-accident of sign.  A number that one of the runs does not reach (e.g. a Kondo
+The uncertainty of a number x is ``TRUNCATION_WEIGHT·|x − x_states| + |x − x_Λ|``.
+The truncation error falls slowly with the kept states (no faster than 1/K
+in our measurements), so the change from K to 1.5 K is only about a third of
+the error at K: hence the weight 3 = 1/(1 − 1/1.5).  The coarser Λ' over- rather
+than understates the discretization error of Λ, so its change counts once.  The
+two add rather than combine in quadrature, which keeps the estimate on the safe
+side when one of them happens to be small by accident of sign.  A number that one of the runs does not reach (e.g. a Kondo
 temperature below the lowest temperature) gets no uncertainty.
 
 Units are those of each quantity (temperatures in D, χ_imp(0) in
@@ -27,11 +30,13 @@ import math
 
 import numpy as np
 
-__all__ = ["HEADLINE", "TRUNCATION_FACTOR", "LAMBDA_POWER", "variant_specs", "headline_values",
+__all__ = ["HEADLINE", "TRUNCATION_FACTOR", "TRUNCATION_WEIGHT", "LAMBDA_POWER", "variant_specs", "headline_values",
            "uncertainties", "format_with_error"]
 
 #: Kept states of the truncation check, relative to the run's own.
 TRUNCATION_FACTOR = 1.5
+#: Weight of the truncation change: 1/(1 − 1/TRUNCATION_FACTOR) for an error ∝ 1/kept states.
+TRUNCATION_WEIGHT = 1.0 / (1.0 - 1.0 / TRUNCATION_FACTOR)
 #: Λ of the discretization check: Λ' = Λ ** LAMBDA_POWER.
 LAMBDA_POWER = 1.25
 
@@ -105,7 +110,7 @@ def uncertainties(main, variants) -> dict:
         if x is None or any(y is None for y in ys):
             out[name] = None
         else:
-            out[name] = float(sum(abs(x - y) for y in ys))
+            out[name] = float(TRUNCATION_WEIGHT * abs(x - ys[0]) + sum(abs(x - y) for y in ys[1:]))
     return out
 
 

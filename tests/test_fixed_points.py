@@ -222,15 +222,15 @@ def test_shipped_pseudogap_sweep_brackets_the_transition_from_the_labels_alone()
     """Γ(ε) ∝ |ε|^r, r = 0.25: below the critical coupling the spin stays free (local moment), above it
     the impurity flows to the particle-hole symmetric strong-coupling fixed point of the pseudogap chain
     (Withoff & Fradkin, Phys. Rev. Lett. 64, 1835 (1990); Gonzalez-Buxton & Ingersent, Phys. Rev. B 57,
-    14254 (1998), from memory).  The shipped sweep's comment puts the critical ρJ between 0.25 and 0.27
+    14254 (1998), from memory).  The shipped sweep's comment puts the critical ρJ between 0.23 and 0.24
     (from its thermodynamics); the final labels of those two points of the shipped sweep must say the same.
-    (All seven points, run once by hand: local-moment for ρJ ≤ 0.25, strong-coupling for ρJ ≥ 0.27.)"""
+    (Adaptive scheme; run by hand: local-moment for ρJ ≤ 0.23, strong-coupling for ρJ ≥ 0.24.)"""
     from pathlib import Path
     from nrgsolve.config import load_config
     from nrgsolve.sweep import sweep_points
     shipped = Path(__file__).resolve().parents[1] / "configs" / "pseudogap_sweep.toml"
     points = {dict(p.values)["impurity.exchange"]: p.spec for p in sweep_points(load_config(shipped))}
-    below, above = solve(points[0.25], workers=1), solve(points[0.27], workers=1)
+    below, above = solve(points[0.23], workers=1), solve(points[0.24], workers=1)
     assert below.fixed_points[1].final == "local-moment"
     assert above.fixed_points[1].final == "strong-coupling"
     assert math.isnan(above.fixed_points[1].phase_shift)     # no density of states at ε = 0: no phase shift
