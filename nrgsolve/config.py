@@ -149,8 +149,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             lambda v: _number_list(v, 0.0, False, 2000) or _log_range(v, 2000),
                             convert=_temperature_tuple),
         "error_estimate": Key(bool, False, "-", "true | false",
-                              "repeat the run with 1.5 × kept_states and with a second Λ, and give every "
-                              "headline number an uncertainty (about 4 × the cost of a plain run)"),
+                              "repeat the run with 1.5 × kept_states, and at Λ^1.25 with twice the twists, and give every "
+                              "headline number an uncertainty (about 5 × the cost of a plain run)"),
         "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",

@@ -214,7 +214,9 @@ def test_two_channel_kondo_residual_entropy_is_half_ln2(two_channel_runs):
     th = two_channel_runs[0].thermo
     low = th.temperature < 100 * th.temperature[0]
     assert np.all(np.abs(th.entropy[low] - 0.5 * LN2) < 0.01 * 0.5 * LN2)
-    assert th.entropy[-1] > 0.45                        # well above ½ ln 2 at T ~ D: the flow starts near ln 2
+    # well above ½ ln 2 at the highest T: the flow starts near ln 2 (with the adaptive scheme's full
+    # coupling, T_K ~ 0.1 D is close to the band edge, so the start is already on its way down)
+    assert th.entropy[-1] > 0.40
     assert abs(th.T_chi[0]) < 3e-5
 
 
@@ -520,7 +522,7 @@ def test_anderson_field_response_linear_below_tk_and_saturating_above(field_runs
     th0, thh = by_h[0.0].thermo, by_h[1e-3].thermo
     hot = th0.temperature > 0.1
     np.testing.assert_allclose(thh.T_chi[hot], th0.T_chi[hot], atol=1e-3)
-    cold = (th0.temperature > 2 * tk) & (th0.temperature < 2e-4)
+    cold = (th0.temperature > 2 * tk) & (th0.temperature < 5e-4)          # T_K < T < h/2
     assert cold.sum() >= 2
     assert np.all(thh.T_chi[cold] < 0.3 * th0.T_chi[cold])
 
