@@ -79,6 +79,45 @@ lowest_temperature = 1e-10
             "iterations": len(res.twists[0].flow.iteration), "T_K": res.summary.kondo_temperature_crossover}
 
 
+def thermodynamics_case() -> dict:
+    """Cost of full-density-matrix thermodynamics against the forward runs it reads, and of a run with
+    error estimates against a plain one (the Kondo model at the defaults, one process)."""
+    from nrgsolve.config import parse_config
+    from nrgsolve.solve import solve
+    from nrgsolve.observables import thermo_fdm
+
+    text = """
+[impurity]
+model = "kondo"
+exchange = 0.15
+[run]
+lowest_temperature = 1e-9
+{extra}
+"""
+    spent = {"fdm": 0.0}
+    kernel = thermo_fdm.chain_thermodynamics
+
+    def timed(*args, **kw):
+        t = time.perf_counter()
+        try:
+            return kernel(*args, **kw)
+        finally:
+            spent["fdm"] += time.perf_counter() - t
+
+    thermo_fdm.chain_thermodynamics = timed
+    try:
+        t0 = time.perf_counter()
+        plain = solve(parse_config(text.format(extra=""), "benchmark-thermo"), workers=1)
+        wall = time.perf_counter() - t0
+    finally:
+        thermo_fdm.chain_thermodynamics = kernel
+    t0 = time.perf_counter()
+    solve(parse_config(text.format(extra="error_estimate = true"), "benchmark-errors"), workers=1)
+    wall_err = time.perf_counter() - t0
+    return {"wall": wall, "fdm": spent["fdm"], "diag": sum(t.diag_seconds for t in plain.twists),
+            "points": len(plain.thermo.temperature), "wall_error_estimate": wall_err}
+
+
 def spectral_case(kept: int, symmetry: str, iterations: int, threads: int = 1) -> dict:
     """The standard Anderson problem with the spectral pass (full density matrix, T = 0)."""
     import numpy as np
@@ -117,12 +156,24 @@ def main(argv=None):
                    help="do not carry the impurity operators n_d and n_d↑n_d↓ (engine cost alone)")
     p.add_argument("--no-kondo", action="store_true", help="skip the standard Kondo run")
     p.add_argument("--no-spectral", action="store_true", help="skip the spectral-pass timing")
+    p.add_argument("--no-thermodynamics", action="store_true",
+                   help="skip the cost of full-density-matrix thermodynamics and of error estimates")
+    p.add_argument("--only-thermodynamics", action="store_true", help="run only that part")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     if a.case:
         kept, sym = a.case.split(":")
         print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads, not a.no_observables)))
         return 0
+    if not a.no_thermodynamics:
+        c = thermodynamics_case()
+        print(f"Kondo model at the defaults (ρJ = 0.15, Λ = 3, 2 twists, 1000 kept, T down to 1e-9 D, one process): "
+              f"{c['wall']:.1f} s wall, {c['diag']:.1f} s in diagonalizations; full-density-matrix thermodynamics "
+              f"at {c['points']} temperatures (impurity and bath, both twists) {c['fdm']:.2f} s = "
+              f"{100 * c['fdm'] / c['wall']:.1f} % of the run; with error estimates {c['wall_error_estimate']:.1f} s "
+              f"= {c['wall_error_estimate'] / c['wall']:.1f} x the plain run", flush=True)
+        if a.only_thermodynamics:
+            return 0
     print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}, "
           f"{a.threads} BLAS thread(s), impurity observables {'off' if a.no_observables else 'on'}")
     print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'wall/diag':>10} {'largest block':>14} {'peak MB':>8}")
