@@ -34,7 +34,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from .config import RunSpec, parse_config
+from .config import RunSpec, parse_config, used_keys
 from .errors import NrgInputError
 from .solve import bath_from_spec, solve
 from .store import atomic_path, read_result, write_result
@@ -146,7 +146,8 @@ def spec_to_toml(spec: RunSpec, header: str = "") -> str:
     Every parameter is written out, so the text stays valid even if a
     default changes later; left out are ``None`` values (meaning "use the
     documented fallback"), the ``[output]`` table (a sweep names its own
-    files) and ``impurity.interaction`` of the resonant level (unused there).
+    files) and the keys the model or bath shape does not use
+    (:func:`nrgsolve.config.used_keys`; giving them is an error).
     ``parse_config(spec_to_toml(spec))`` gives back the same parameters.
 
     Parameters
@@ -160,10 +161,10 @@ def spec_to_toml(spec: RunSpec, header: str = "") -> str:
         if table == "output":
             continue
         body = []
+        choice = values["model"] if table == "impurity" else values["shape"] if table == "bath" else None
+        used = used_keys(table, choice)
         for key, value in values.items():
-            if value is None:
-                continue
-            if table == "impurity" and key == "interaction" and values["model"] == "resonant-level":
+            if value is None or key not in used:
                 continue
             body.append(f"{key} = {_toml_value(value)}")
         if body:
