@@ -28,6 +28,7 @@ from .chain import build_chain
 from .engine import make_symmetry, run_chain, EngineSettings
 from .engine.iterate import Step
 from .models import kondo_block, two_channel_kondo_block, anderson_block, bare_chain_block
+from .finite import check_finite_result
 from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
                           ThermoCurve, KondoSummary, FlowSpectrum)
 
@@ -244,9 +245,9 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     return curves, transport
 
 
-def _solve_twist_queued(spec, z, queue):
-    cb = (lambda n: queue.put(1)) if queue is not None else None
-    return solve_twist(spec, z, cb)
+def _solve_twist_reporting(spec, z):
+    from .workers import reporter
+    return solve_twist(spec, z, reporter())
 
 
 def n_iterations(spec: RunSpec, bath=None) -> int:
@@ -285,40 +286,18 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
         cb = (lambda n: progress(1)) if progress is not None else None
         results = [solve_twist(spec, z, cb, bath) for z in zs]
     else:
-        import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
-        ctx = mp.get_context("spawn")
-        import contextlib
-        # every twist pins its own BLAS threads (run.blas_threads) inside solve_twist
-        with (ctx.Manager() if progress is not None else contextlib.nullcontext()) as manager:
-            queue = manager.Queue() if manager is not None else None
-            with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-                futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
-                while not all(f.done() for f in futs):
-                    _drain(queue, progress, timeout=0.2)
-                _drain(queue, progress, timeout=0.0)
-                results = [f.result() for f in futs]
+        # every twist pins its own BLAS threads (run.blas_threads) inside solve_twist; the workers die with
+        # this process and are stopped on Ctrl-C (nrgsolve.workers)
+        from .workers import map_in_processes
+        results = map_in_processes(_solve_twist_reporting, [(spec, z) for z in zs], workers, progress)
     thermo = average_twists([t.thermo for t in results])
+    check_finite_result(thermo, [t.thermo for t in results], zs)      # NaN/inf never reach a result
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
                      wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
                      transport=transport)
-
-
-def _drain(queue, progress, timeout):
-    if queue is None:
-        time.sleep(timeout)
-        return
-    import queue as _q
-    try:
-        n = queue.get(timeout=timeout) if timeout else queue.get_nowait()
-        progress(n)
-        while True:
-            progress(queue.get_nowait())
-    except _q.Empty:
-        pass
 
 
 #: Largest discarded thermal weight per iteration (fraction of the Boltzmann weight at T_N carried by the

@@ -40,7 +40,7 @@ from .solve import bath_from_spec, solve
 from .store import atomic_path, read_result, write_result
 
 __all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "sweep_points", "spec_to_toml",
-           "default_folder", "point_file_name", "run_sweep", "read_index", "WorkerLost"]
+           "default_folder", "point_file_name", "run_sweep", "read_index", "WorkerLost", "remove_stale_parts"]
 
 #: Summary attributes copied from each point file into ``index.csv``
 #: (temperatures in units of D; NaN means "not reached").
@@ -218,7 +218,8 @@ def _stored_matches(stored, point: SweepPoint) -> bool:
     return _comparable(got) == _comparable(point.spec)
 
 
-def _remove_stale_parts(folder: Path) -> list[Path]:
+def remove_stale_parts(folder: Path) -> list[Path]:
+    """Remove temporary ``.part`` files a killed or interrupted sweep left in ``folder``; return them."""
     removed = []
     for pattern in (".point_*.h5.*.part", ".index.csv.*.part"):
         for p in folder.glob(pattern):
@@ -243,24 +244,21 @@ def _run_local(tasks, jobs: int, done: Callable[[int], None]):
             _run_point(*args)
             done(number)
         return
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures import as_completed
     from concurrent.futures.process import BrokenProcessPool
+    from .workers import process_pool, submit_all
 
-    ctx = mp.get_context("spawn")
-    # each point runs its twists serially with run.blas_threads BLAS threads (solve_twist pins them)
-    with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx) as pool:
-        futures = {pool.submit(_run_point, *args): number for number, args in tasks}
+    # each point runs its twists serially with run.blas_threads BLAS threads (solve_twist pins them);
+    # the workers die with this process and are terminated on Ctrl-C or SIGTERM (nrgsolve.workers)
+    with process_pool(min(jobs, len(tasks))) as pool:
+        futs = submit_all(pool, _run_point, [args for _, args in tasks])
+        futures = {f: number for f, (number, _) in zip(futs, tasks)}
         try:
             for fut in as_completed(futures):
                 fut.result()
                 done(futures[fut])
         except BrokenProcessPool:
             raise WorkerLost("a worker process died before finishing its point") from None
-        except BaseException:
-            for f in futures:
-                f.cancel()
-            raise
 
 
 def _import_distributed():
@@ -414,7 +412,7 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
             folder.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise NrgInputError(f"--output-folder: cannot create {folder} ({exc.strerror})") from None
-        _remove_stale_parts(folder)
+        remove_stale_parts(folder)
         if progress is not None:
             for _ in existing:
                 progress(1)
