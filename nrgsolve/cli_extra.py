@@ -94,7 +94,7 @@ def _plot(args, files, default_name, draw) -> int:
     _check_png(png, args.force)
     try:
         figure = draw(results)
-    except (KeyError, IndexError, TypeError, ValueError) as exc:
+    except (KeyError, IndexError, TypeError, ValueError, AttributeError) as exc:
         raise NrgInputError(f"{_files_named(files)}: cannot plot this result file ({_reason(exc)})") from None
     written = save_figure(figure, png, force=args.force)
     if not args.quiet:

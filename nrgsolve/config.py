@@ -460,6 +460,8 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
     ConfigError
         For malformed TOML, unknown tables or keys, wrong types, out-of-range values.
     """
+    if not isinstance(text, str):
+        raise ConfigError(f"{path}: expected config text, got {type(text).__name__}")
     if text.startswith("\ufeff"):
         text = text[1:]        # a UTF-8 byte-order mark (some editors write one) is not part of the TOML
     try:

@@ -317,5 +317,10 @@ def _warnings(spec, results, thermo, summary) -> list:
     if low > 1.5 * spec.run.lowest_temperature:
         out.append(f"lowest temperature reached {low:.3g} D is above the requested {spec.run.lowest_temperature:.3g} D")
     if summary.kondo_temperature_crossover is None and spec.impurity.model != "two-channel-kondo":
-        out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low enough)")
+        if np.all(np.asarray(thermo.T_chi) < 0.07):
+            out.append("Kondo temperature not found: T·χ_imp is below 0.07 already at the highest temperature "
+                       f"computed ({float(thermo.temperature[-1]):.3g} D); the Kondo scale is at or above it")
+        else:
+            out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low "
+                       "enough)")
     return out

@@ -30,6 +30,7 @@ import io
 import itertools
 import math
 import os
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
@@ -291,20 +292,41 @@ def _connect(scheduler: str, connect_timeout: float):
 
 
 def _run_cluster(tasks, client, scheduler: str, done: Callable[[int], None]):
+    import asyncio
+    import concurrent.futures
     import distributed
 
+    lost = (OSError, TimeoutError, asyncio.CancelledError, concurrent.futures.CancelledError)
     futures = {}
-    for number, args in tasks:
-        fut = client.submit(_run_point, *args, pure=False, key=f"nrgsolve-point-{number:04d}-{os.getpid()}")
-        futures[fut] = number
-    for fut in distributed.as_completed(list(futures), loop=client.loop):
-        try:
+    try:
+        for number, args in tasks:
+            fut = client.submit(_run_point, *args, pure=False, key=f"nrgsolve-point-{number:04d}-{os.getpid()}")
+            futures[fut] = number
+        for fut in distributed.as_completed(list(futures), loop=client.loop):
             fut.result()
-        except distributed.KilledWorker:
-            raise WorkerLost("a cluster worker died before finishing its point") from None
-        except OSError as exc:          # lost the scheduler (CommClosedError is an OSError)
-            raise WorkerLost(f"lost the connection to the scheduler {scheduler!r} ({exc})") from None
-        done(futures[fut])
+            done(futures[fut])
+    except distributed.KilledWorker:
+        raise WorkerLost("a cluster worker died before finishing its point") from None
+    except lost:   # the scheduler went away (CommClosedError is an OSError; futures are cancelled)
+        raise WorkerLost(f"lost the connection to the scheduler {scheduler!r}") from None
+
+
+@contextmanager
+def _quiet_cluster_logs():
+    """While a sweep talks to a cluster, the cluster library's own log lines (reconnect attempts, tracebacks
+    of a lost scheduler) stay off the terminal; the sweep reports problems in one line itself."""
+    import logging
+    prefixes = ("distributed", "tornado", "asyncio")
+    names = [n for n in list(logging.root.manager.loggerDict)
+             if n.split(".")[0] in prefixes] + list(prefixes)
+    old = {n: logging.getLogger(n).level for n in names}
+    for n in names:
+        logging.getLogger(n).setLevel(logging.CRITICAL + 1)
+    try:
+        yield
+    finally:
+        for n, level in old.items():
+            logging.getLogger(n).setLevel(level)
 
 
 def _row(point: SweepPoint, stored) -> dict:
@@ -406,6 +428,11 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
             todo.append(p)
     if scheduler is not None:
         _import_distributed()
+    with _quiet_cluster_logs():
+        return _run_points(spec, points, existing, todo, folder, jobs, scheduler, progress, connect_timeout)
+
+
+def _run_points(spec, points, existing, todo, folder, jobs, scheduler, progress, connect_timeout) -> SweepOutcome:
     client = _connect(scheduler, connect_timeout) if (scheduler is not None and todo) else None
     try:
         try:
@@ -428,7 +455,10 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
             _run_local(tasks, jobs, done)
     finally:
         if client is not None:
-            client.close()
+            try:
+                client.close(timeout=5)
+            except Exception:       # the scheduler may be gone already; nothing left to close cleanly
+                pass
     rows = []
     for p in points:
         stored = existing.get(p.number)
