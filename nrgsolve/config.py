@@ -441,7 +441,7 @@ def _check_value(table, key, spec: Key, value):
     return float(value) if kind is NUM else value
 
 
-def parse_config(text: str, path: str = "<config>") -> RunSpec:
+def parse_config(text: str, path: str = "<config>", stored: bool = False) -> RunSpec:
     """Parse and validate config text.
 
     Parameters
@@ -450,6 +450,9 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
         TOML text.
     path : str
         Name used in messages; table paths are resolved relative to its folder.
+    stored : bool
+        The text comes from a result file: keys the model does not use are
+        tolerated (older versions wrote every key); everything else is checked.
 
     Returns
     -------
@@ -489,13 +492,18 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
             else:
                 values[table][key] = spec.default
     sweep = _parse_sweep(sweep_raw) if sweep_raw is not None else SweepSpec()
+    if not stored:
+        _check_used(raw, values, sweep)
+    return _build(values, text, path, sweep, check_cross=True)
+
+
+def _check_used(raw, values, sweep):
     check_used_keys(raw, _swept_or(sweep, "impurity.model", values["impurity"]["model"]),
                     _swept_or(sweep, "bath.shape", values["bath"]["shape"]))
     check_used_keys({t: [n.split(".", 1)[1] for n in sweep.parameters if n.startswith(t + ".")]
                      for t in ("impurity", "bath")},
                     _swept_or(sweep, "impurity.model", values["impurity"]["model"]),
                     _swept_or(sweep, "bath.shape", values["bath"]["shape"]), where="sweep: ")
-    return _build(values, text, path, sweep, check_cross=True)
 
 
 def _swept_or(sweep: "SweepSpec", name: str, value) -> tuple:

@@ -62,7 +62,7 @@ def convergence(stored: StoredResult) -> dict:
 
 def _spec(stored: StoredResult):
     text = stored.attrs.get("config_text", "")
-    return parse_config(text, stored.attrs.get("config_path", "<stored config>") or "<stored config>")
+    return parse_config(text, stored.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
 
 
 def derived_warnings(stored: StoredResult) -> list[str]:

@@ -157,7 +157,7 @@ def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None
 def _parsed(result: StoredResult):
     try:
         return parse_config(result.attrs.get("config_text", ""),
-                            result.attrs.get("config_path", "<stored config>") or "<stored config>")
+                            result.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
     except NrgInputError:
         return None
 

@@ -213,7 +213,7 @@ def _comparable(spec: RunSpec) -> dict:
 
 def _stored_matches(stored, point: SweepPoint) -> bool:
     try:
-        got = parse_config(stored.attrs.get("config_text", ""), point.spec.config_path)
+        got = parse_config(stored.attrs.get("config_text", ""), point.spec.config_path, stored=True)
     except NrgInputError:
         return False
     return _comparable(got) == _comparable(point.spec)

@@ -411,8 +411,12 @@ def _broken(src, dst, how):
             h.attrs["config_text"] = 5
 
 
-@pytest.mark.parametrize("how", ["extra twist group", "text temperatures", "no summary", "number as config"])
-@pytest.mark.parametrize("command", [["inspect"], ["plot", "flow"], ["plot", "thermo"]])
+BROKEN = ["extra twist group", "text temperatures", "no summary", "number as config"]
+
+
+@pytest.mark.parametrize("command,how", [(["inspect"], how) for how in BROKEN]
+                         + [(["plot", "flow"], "extra twist group"), (["plot", "flow"], "number as config"),
+                            (["plot", "thermo"], "text temperatures"), (["plot", "thermo"], "no summary")])
 def test_broken_result_files_are_refused_in_one_line(stored, tmp_path, how, command):
     _broken(stored, tmp_path / "b.h5", how)
     before = listing(tmp_path)
@@ -560,3 +564,16 @@ def test_random_configs_give_a_complete_file_or_one_line_and_nothing(tmp_path_fa
         for name in ("T_chi_imp", "S_imp", "C_imp"):
             assert np.all(np.isfinite(stored.thermodynamics[name])), name
         assert sorted(listing(work)) == ["c.toml", "out.h5"]
+
+
+def test_point_files_of_older_versions_with_unused_keys_still_resume(tmp_path):
+    """Older versions wrote every [impurity] key into a point file; such files still count as done."""
+    (tmp_path / "s.toml").write_text(tiny_kondo(0.2) + "[sweep]\n\"impurity.exchange\" = [0.15, 0.2]\n")
+    assert run_cli("sweep", "s.toml", "-q", cwd=tmp_path).returncode == 0
+    point = tmp_path / "s_sweep" / "point_0000.h5"
+    with h5py.File(point, "r+") as h:
+        text = h.attrs["config_text"]
+        h.attrs["config_text"] = text.replace("[impurity]\n", "[impurity]\nspin = 0.5\ninteraction = 0.1\n")
+    proc = run_cli("sweep", "s.toml", cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "0 computed, 2 already done" in proc.stdout
