@@ -577,3 +577,24 @@ def test_point_files_of_older_versions_with_unused_keys_still_resume(tmp_path):
     proc = run_cli("sweep", "s.toml", cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert "0 computed, 2 already done" in proc.stdout
+
+
+def _datasets(path):
+    out = {}
+    with h5py.File(path, "r") as h:
+        h.visititems(lambda name, obj: out.__setitem__(name, obj[()]) if isinstance(obj, h5py.Dataset) else None)
+    return out
+
+
+def test_runs_stay_bit_for_bit_identical_across_worker_counts(tmp_path):
+    """The worker processes (now dying with their parent) change nothing in the numbers: one process and two
+    give identical datasets, bit for bit (common practice, no source: a deterministic program)."""
+    base = _edit(tiny_kondo(0.2), "twists = 1", "twists = 2")
+    for w in (1, 2):
+        (tmp_path / f"w{w}.toml").write_text(base + f"workers = {w}\n")
+        proc = run_cli("run", f"w{w}.toml", "-q", cwd=tmp_path)
+        assert proc.returncode == 0, proc.stderr
+    one, two = _datasets(tmp_path / "w1.h5"), _datasets(tmp_path / "w2.h5")
+    assert one.keys() == two.keys() and len(one) > 20
+    for name in one:
+        assert np.array_equal(one[name], two[name], equal_nan=True), name
