@@ -266,17 +266,17 @@ def _check_table_points(energy, value, where, lines):
 
     for i in range(len(e)):
         if not (math.isfinite(e[i]) and math.isfinite(v[i])):
-            raise TableError(f"{at(i)}: non-finite entry ({e[i]!r}, {v[i]!r}); energies and values must be finite")
+            raise TableError(f"{at(i)}: non-finite entry ({float(e[i])!r}, {float(v[i])!r}); energies and values must be finite")
         if v[i] < 0:
-            raise TableError(f"{at(i)}: hybridization value {v[i]!r} < 0; values must be >= 0")
+            raise TableError(f"{at(i)}: hybridization value {float(v[i])!r} < 0; values must be >= 0")
         if i > 0 and not e[i] > e[i - 1]:
-            raise TableError(f"{at(i)}: energy {e[i]!r} does not exceed the previous {e[i - 1]!r}; "
+            raise TableError(f"{at(i)}: energy {float(e[i])!r} does not exceed the previous {float(e[i - 1])!r}; "
                              "energies must be strictly increasing")
     if len(e) < MIN_TABLE_POINTS:
         last = f", last line {lines[-1]}" if lines else ""
         raise TableError(f"{where}{last}: {len(e)} data points; a table needs at least {MIN_TABLE_POINTS}")
     if not (e[0] < 0.0 < e[-1]):
-        raise TableError(f"{where}: energy range [{e[0]!r}, {e[-1]!r}] must contain the Fermi level strictly "
+        raise TableError(f"{where}: energy range [{float(e[0])!r}, {float(e[-1])!r}] must contain the Fermi level strictly "
                          "inside (ε_min < 0 < ε_max)")
     if not np.any(v > 0):
         raise TableError(f"{where}: all hybridization values are 0; at least one must be > 0")

@@ -33,7 +33,9 @@ def _progress_bar(total, quiet, desc):
 
 
 def _output_path(spec, override):
-    if override:
+    if override is not None:
+        if not override.strip():
+            raise NrgInputError("--output: got an empty file name; allowed: a path ending in .h5")
         return Path(override)
     if spec.output.file:
         return Path(spec.output.file)
@@ -44,15 +46,25 @@ def cmd_run(args) -> int:
     from .config import load_config
     from .solve import solve, n_iterations, bath_from_spec
     from .store import write_result, check_output_path
+    from .resources import check_resources, concurrent_workers, note
 
     spec = load_config(args.config)
+    if spec.sweep.parameters:
+        raise NrgInputError(f"{args.config}: has a [sweep] table; 'nrgsolve run' runs one configuration: "
+                            f"use 'nrgsolve sweep {args.config}', or remove the [sweep] table")
     if args.error_estimate and not spec.run.error_estimate:
         spec = spec.with_value("run.error_estimate", True)
     out = _output_path(spec, args.output)
+    flag = "--output" if args.output is not None else "output.file"
     if not str(out).endswith((".h5", ".hdf5")):
-        raise NrgInputError(f"--output: got {str(out)!r}; allowed: a path ending in .h5")
-    check_output_path(out, args.force)
+        raise NrgInputError(f"{flag}: got {str(out)[:200]!r}; allowed: a path ending in .h5")
+    check_output_path(out, args.force, name=flag, create_folder=False)
     bath = bath_from_spec(spec)
+    workers = concurrent_workers(spec)
+    est = check_resources(spec, bath, workers=workers)
+    msg = note(est, workers)
+    if msg and not args.quiet:
+        print(f"nrgsolve: note: {msg}", file=sys.stderr)
     total = n_iterations(spec, bath)
     with _progress_bar(total, args.quiet, f"{spec.impurity.model} ({spec.discretization.twists} twist(s))") as bar:
         result = solve(spec, progress=bar.update)
@@ -103,6 +115,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    from .workers import Terminated, WorkerDied, install_termination_handler
+
+    install_termination_handler()      # SIGTERM/SIGHUP end the run like Ctrl-C: workers stopped, nothing written
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
@@ -111,8 +126,15 @@ def main(argv=None) -> int:
         return _fail(str(exc))
     except NrgNumericalError as exc:
         return _fail(f"numerical problem: {exc}")
+    except WorkerDied as exc:
+        print(f"nrgsolve: error: {exc}; no output written", file=sys.stderr)
+        return 1
+    except Terminated as exc:
+        print(f"nrgsolve: error: terminated (signal {exc.signum}); no output written", file=sys.stderr)
+        return 128 + exc.signum
     except KeyboardInterrupt:
-        return _fail("interrupted; no output written")
+        print("nrgsolve: error: interrupted; no output written", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

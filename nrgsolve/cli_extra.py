@@ -38,21 +38,40 @@ def _bar(total, quiet, desc, unit):
 def cmd_sweep(args) -> int:
     """Run every point of a sweep config; write point files and index.csv."""
     from .config import load_config
-    from .sweep import WorkerLost, default_folder, run_sweep, sweep_points
+    from .resources import check_resources
+    from .sweep import WorkerLost, default_folder, remove_stale_parts, run_sweep, sweep_points
+    from .workers import Terminated
 
     spec = load_config(args.config)
+    if args.output_folder is not None and not args.output_folder.strip():
+        raise NrgInputError("--output-folder: got an empty folder name")
     folder = Path(args.output_folder) if args.output_folder else default_folder(spec)
-    n = len(sweep_points(spec))
+    points = sweep_points(spec)
+    n = len(points)
+    jobs = 1 if args.scheduler else min(args.jobs, n)
+    for p in points:          # refuse a point that cannot fit into memory before any point starts
+        try:
+            check_resources(p.spec, workers=jobs)
+        except NrgInputError as exc:
+            where = ", ".join(f"{k} = {v!r}" for k, v in p.values)
+            raise NrgInputError(f"sweep point {p.number} ({where}): {exc}") from None
     with _bar(n, args.quiet, f"sweep {Path(args.config).name}", "point") as bar:
         try:
             out = run_sweep(spec, folder, jobs=args.jobs, scheduler=args.scheduler, force=args.force,
                             progress=bar.update)
         except (WorkerLost, KeyboardInterrupt) as exc:
+            if folder.is_dir():
+                remove_stale_parts(folder)
             done = len(list(folder.glob("point_*.h5"))) if folder.is_dir() else 0
-            what = str(exc) if isinstance(exc, WorkerLost) else "interrupted"
+            if isinstance(exc, WorkerLost):
+                what, code = str(exc), 1
+            elif isinstance(exc, Terminated):
+                what, code = f"terminated (signal {exc.signum})", 128 + exc.signum
+            else:
+                what, code = "interrupted", 130
             print(f"nrgsolve: error: {what}; {done} of {n} point files are on disk in {folder}; "
                   f"run the same command again to resume", file=sys.stderr)
-            return 1 if isinstance(exc, WorkerLost) else 130
+            return code
     if not args.quiet:
         print(f"{len(out.rows)} points: {len(out.computed)} computed, {len(out.skipped)} already done")
         print(f"wrote {out.index}")
@@ -69,9 +88,15 @@ def _plot(args, files, default_name, draw) -> int:
     from .store import read_result
 
     results = [read_result(f) for f in files]
-    png = Path(args.output) if args.output else _default_png(default_name)
+    if args.output is not None and not args.output.strip():
+        raise NrgInputError("--output: got an empty file name; allowed: a file name ending in .png")
+    png = Path(args.output) if args.output is not None else _default_png(default_name)
     _check_png(png, args.force)
-    written = save_figure(draw(results), png, force=args.force)
+    try:
+        figure = draw(results)
+    except (KeyError, IndexError, TypeError, ValueError, AttributeError) as exc:
+        raise NrgInputError(f"{_files_named(files)}: cannot plot this result file ({_reason(exc)})") from None
+    written = save_figure(figure, png, force=args.force)
     if not args.quiet:
         print("wrote " + ", ".join(str(p) for p in written))
     return 0
@@ -112,13 +137,21 @@ def _image_options(parser, default_name: str):
     parser.add_argument("--quiet", "-q", action="store_true", help="print nothing")
 
 
+def _files_named(files) -> str:
+    return ", ".join(str(f) for f in files)
+
+
+def _reason(exc) -> str:
+    return " ".join(str(exc).split())[:200] or exc.__class__.__name__
+
+
 def _check_png(png: Path, force: bool):
-    # fail before any drawing: a wrong name or an existing file is an input error
+    # fail before any drawing: a wrong name, an existing file or a place that cannot be written is an input error
+    from .store import check_output_path
     if png.suffix.lower() != ".png":
-        raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
+        raise NrgInputError(f"--output: got {str(png)[:200]!r}; allowed: a file name ending in .png")
     for t in (png, png.with_suffix(".pdf")):
-        if t.exists() and not force:
-            raise NrgInputError(f"--output: {t} already exists; use --force to overwrite or choose another --output")
+        check_output_path(t, force, name="--output", suffix=".png", create_folder=False)
 
 
 def cmd_inspect(args) -> int:
@@ -126,7 +159,12 @@ def cmd_inspect(args) -> int:
     from .inspect_result import describe
     from .store import read_result
 
-    sys.stdout.write(describe(read_result(args.file)))
+    stored = read_result(args.file)
+    try:
+        text = describe(stored)
+    except (KeyError, IndexError, TypeError, ValueError, AttributeError) as exc:
+        raise NrgInputError(f"{args.file}: not a valid result file ({_reason(exc)})") from None
+    sys.stdout.write(text)
     return 0
 
 

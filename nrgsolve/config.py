@@ -56,6 +56,38 @@ def _finite(x):
 
 NUM = (int, float)
 
+# Ranges that keep the numerics meaningful; each is documented in the "allowed" column of docs/config.md.
+#: |ρJ|, |ρK|: at ρJ = 1 the exchange J = 2D equals the bandwidth and the Kondo scale is of the order of D
+#: (strong-coupling limit); larger couplings only describe that limit and drive the first iterations into
+#: overflow (ρJ = 1e100 gave NaN specific heats).
+MAX_COUPLING = 1.0
+#: |ε_d|, Γ, |h| (and U/2) in units of the half-bandwidth D: ten bandwidths is far outside the band (the impurity
+#: state is frozen out or the level is locked to site 0), beyond which the answer is that limit.
+MAX_ENERGY = 10.0
+#: Power-law bath exponent r (pseudogap g = |ε/D|^r): the physically studied range is 0 <= r <= 2 or so.
+MAX_EXPONENT = 4.0
+#: Λ: below 1.2 the chain length grows like 2 ln(D/T)/ln Λ beyond a thousand sites for the temperatures
+#: of interest (Λ = 1.0000001 asked for 3.7e8 sites); above 10 the discretization has fewer than one site
+#: per decade of energy.
+MIN_LAMBDA, MAX_LAMBDA = 1.2, 10.0
+#: Twists: z-averaging converges with a few (2 to 8 are usual); 64 is a generous ceiling on the run time.
+MAX_TWISTS = 64
+#: β̄: T_N = ω_N/β̄ must lie within the kept spectrum (a few ω_N; β̄ >= 0.1) and above the level spacing of
+#: the finite chain (β̄ <= 10); outside this the thermodynamics measure truncation or discreteness.
+MIN_BETA_BAR, MAX_BETA_BAR = 0.1, 10.0
+#: Hard ceiling on kept states; the memory estimate (nrgsolve.resources) refuses most runs well below it.
+MAX_KEPT_STATES = 1_000_000
+#: energy_cutoff (units of ω_N): typical values are 5 to 10; the kept count grows about exponentially with it.
+MAX_ENERGY_CUTOFF = 100.0
+#: lowest_temperature / half_bandwidth: 1e-30 needs 760 chain sites at Λ = 1.2, already hours of work.
+MIN_TEMPERATURE_RATIO = 1e-30
+#: flow_levels: the flow plot draws a few tens; 2000 per iteration is still small on disk.
+MAX_FLOW_LEVELS = 2000
+
+
+def _coupling(x):
+    return _finite(x) and abs(x) <= MAX_COUPLING
+
 
 def _number_list(v, low, allow_low, longest=64):
     return (isinstance(v, list) and 1 <= len(v) <= longest
@@ -82,40 +114,44 @@ def _temperature_tuple(v):
 SCHEMA: dict[str, dict[str, Key]] = {
     "impurity": {
         "model": Key(str, "kondo", "-", " | ".join(MODELS), "impurity model", choices=MODELS),
-        "exchange": Key(NUM, 0.15, "ρJ (dimensionless)", "finite; > 0 antiferromagnetic, < 0 ferromagnetic",
-                        "Kondo exchange coupling ρJ, ρ = 1/(2D)", _finite),
-        "exchange_second_channel": Key(NUM, None, "ρJ (dimensionless)", "finite (default: equal to exchange)",
-                                       "two-channel Kondo: exchange coupling to the second channel", _finite),
-        "potential_scattering": Key(NUM, 0.0, "ρK (dimensionless)", "finite",
-                                    "Kondo model: potential scattering ρK at the impurity site", _finite),
+        "exchange": Key(NUM, 0.15, "ρJ (dimensionless)",
+                        f"|ρJ| <= {MAX_COUPLING:g}; > 0 antiferromagnetic, < 0 ferromagnetic",
+                        "Kondo exchange coupling ρJ, ρ = 1/(2D)", _coupling),
+        "exchange_second_channel": Key(NUM, None, "ρJ (dimensionless)",
+                                       f"|ρJ| <= {MAX_COUPLING:g} (default: equal to exchange)",
+                                       "two-channel Kondo: exchange coupling to the second channel", _coupling),
+        "potential_scattering": Key(NUM, 0.0, "ρK (dimensionless)", f"|ρK| <= {MAX_COUPLING:g}",
+                                    "Kondo model: potential scattering ρK at the impurity site", _coupling),
         "spin": Key(NUM, 0.5, "ħ", "0.5, 1, 1.5, 2, ...", "spin-Kondo model: impurity spin S",
                     lambda s: _finite(s) and s > 0 and abs(2 * s - round(2 * s)) < 1e-12 and s <= 4),
-        "level": Key(NUM, None, "D", "finite (default: −interaction/2, the symmetric point)",
+        "level": Key(NUM, None, "D", f"|ε_d| <= {MAX_ENERGY:g} D (default: −interaction/2, the symmetric point)",
                      "Anderson model: level energy ε_d", _finite),
-        "interaction": Key(NUM, 0.1, "D", ">= 0 (must be 0 for resonant-level)",
+        "interaction": Key(NUM, 0.1, "D", f">= 0 and <= {2 * MAX_ENERGY:g} D",
                            "Anderson model: on-site repulsion U", lambda u: _finite(u) and u >= 0),
-        "hybridization": Key(NUM, 0.01, "D", "> 0", "Anderson/resonant level: Γ = πρV² at the Fermi level",
+        "hybridization": Key(NUM, 0.01, "D", f"> 0 and <= {MAX_ENERGY:g} D",
+                             "Anderson/resonant level: Γ = πρV² at the Fermi level",
                              lambda g: _finite(g) and g > 0),
-        "field": Key(NUM, 0.0, "D", "finite (non-zero needs run.symmetry = \"abelian\")",
+        "field": Key(NUM, 0.0, "D", f"|h| <= {MAX_ENERGY:g} D (non-zero needs run.symmetry = \"abelian\")",
                      "Zeeman energy h on the impurity, H = −h S_z", _finite),
     },
     "bath": {
         "shape": Key(str, "flat", "-", " | ".join(BATH_SHAPES), "shape g(ε) of the hybridization function",
                      choices=BATH_SHAPES),
-        "half_bandwidth": Key(NUM, 1.0, "D", "> 0", "half-bandwidth D of the conduction band",
-                              lambda d: _finite(d) and d > 0),
-        "exponent": Key(NUM, 0.0, "-", ">= 0", "power-law bath: g(ε) = |ε/D|^r, r = exponent",
-                        lambda r: _finite(r) and r >= 0),
+        "half_bandwidth": Key(NUM, 1.0, "D", ">= 1e-06 and <= 1e+06", "half-bandwidth D of the conduction band",
+                              lambda d: _finite(d) and 1e-6 <= d <= 1e6),
+        "exponent": Key(NUM, 0.0, "-", f">= 0 and <= {MAX_EXPONENT:g}", "power-law bath: g(ε) = |ε/D|^r, r = exponent",
+                        lambda r: _finite(r) and 0 <= r <= MAX_EXPONENT),
         "table": Key(str, None, "path", "readable two-column text file (ε, g(ε))",
                      "table bath: file with ε (units of D) and g(ε) >= 0; relative to the config file"),
     },
     "discretization": {
-        "Lambda": Key(NUM, 3.0, "-", "> 1", "logarithmic discretization parameter Λ",
-                      lambda x: _finite(x) and x > 1),
-        "twists": Key(int, 2, "-", ">= 1", "number of evenly spaced twists z = k/n, k = 1..n (z-averaging; "
+        "Lambda": Key(NUM, 3.0, "-", f">= {MIN_LAMBDA:g} and <= {MAX_LAMBDA:g}", "logarithmic discretization parameter Λ",
+                      lambda x: _finite(x) and MIN_LAMBDA <= x <= MAX_LAMBDA),
+        "twists": Key(int, 2, "-", f">= 1 and <= {MAX_TWISTS}",
+                      "number of evenly spaced twists z = k/n, k = 1..n (z-averaging; "
                       "the adaptive scheme reproduces Γ(ε) only on average over twists, and one twist misses the "
                       "Friedel sum rule by 2 % at Λ = 3)",
-                      lambda n: n >= 1),
+                      lambda n: 1 <= n <= MAX_TWISTS),
         "scheme": Key(str, "adaptive", "-", " | ".join(SCHEMES),
                       "discretization scheme: \"adaptive\" reproduces Γ(ε) exactly after z-averaging "
                       "(Campo & Oliveira 2005; Žitko & Pruschke 2009), so physical scales do not depend on Λ",
@@ -125,18 +161,21 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                  "discretization's reduction of the effective coupling"),
     },
     "run": {
-        "kept_states": Key(int, 1000, "states", ">= 1 (counting 2S+1)",
-                           "states kept per iteration, counting spin degeneracy", lambda n: n >= 1),
-        "energy_cutoff": Key(NUM, None, "ω_N", "> 0 (optional)",
+        "kept_states": Key(int, 1000, "states",
+                           f">= 1 and <= {MAX_KEPT_STATES} (counting 2S+1); the memory the run needs is estimated "
+                           "before it starts and must fit into the machine",
+                           "states kept per iteration, counting spin degeneracy", lambda n: 1 <= n <= MAX_KEPT_STATES),
+        "energy_cutoff": Key(NUM, None, "ω_N", f"> 0 and <= {MAX_ENERGY_CUTOFF:g} (optional; memory estimated up front)",
                              "keep every state below this energy (units of ω_N) instead of a fixed count",
-                             lambda e: _finite(e) and e > 0),
-        "lowest_temperature": Key(NUM, 1e-8, "D", "> 0 and < half_bandwidth",
+                             lambda e: _finite(e) and 0 < e <= MAX_ENERGY_CUTOFF),
+        "lowest_temperature": Key(NUM, 1e-8, "D",
+                                  f"> 0 and < half_bandwidth, at least {MIN_TEMPERATURE_RATIO:g} half_bandwidth",
                                   "lowest temperature wanted; sets the chain length",
                                   lambda t: _finite(t) and t > 0),
-        "beta_bar": Key(NUM, 1.0, "-", "> 0",
+        "beta_bar": Key(NUM, 1.0, "-", f">= {MIN_BETA_BAR:g} and <= {MAX_BETA_BAR:g}",
                         "conventional thermodynamics: T_N = ω_N / beta_bar, the temperature evaluated at "
                         "iteration N; also sets the temperature of the discarded-weight diagnostic",
-                        lambda b: _finite(b) and b > 0),
+                        lambda b: _finite(b) and MIN_BETA_BAR <= b <= MAX_BETA_BAR),
         "thermodynamics": Key(str, "full-density-matrix", "-", " | ".join(THERMO_METHODS),
                               "how impurity thermodynamics is computed: from the complete basis of discarded "
                               "states of every shell at any temperature (no beta_bar), or conventionally at "
@@ -153,17 +192,18 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               "headline number an uncertainty (about 5 × the cost of a plain run)"),
         "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
                         choices=SYMMETRIES),
-        "workers": Key(int, 0, "processes", ">= 0 (0: one per twist, at most the CPU count)",
-                       "parallel processes for the twists", lambda n: n >= 0),
-        "blas_threads": Key(int, 1, "threads", ">= 1",
+        "workers": Key(int, 0, "processes", ">= 0 and <= 1024 (0: one per twist, at most the CPU count)",
+                       "parallel processes for the twists", lambda n: 0 <= n <= 1024),
+        "blas_threads": Key(int, 1, "threads", ">= 1 and <= 1024",
                             "BLAS/LAPACK threads per process (the blocks are small: one thread is usually fastest)",
-                            lambda n: n >= 1),
+                            lambda n: 1 <= n <= 1024),
         "bath_reference": Key(str, "nrg", "-", "nrg | exact",
                               "how the bare-chain thermodynamics subtracted from the impurity run is computed: "
                               "an NRG run with the same truncation (errors cancel) or exact single-particle",
                               choices=("nrg", "exact")),
-        "flow_levels": Key(int, 40, "levels", ">= 1", "lowest levels per iteration stored for the flow",
-                           lambda n: n >= 1),
+        "flow_levels": Key(int, 40, "levels", f">= 1 and <= {MAX_FLOW_LEVELS}",
+                           "lowest levels per iteration stored for the flow",
+                           lambda n: 1 <= n <= MAX_FLOW_LEVELS),
     },
     "spectral": {
         "temperatures": Key(list, None, "D", "list of 1 to 64 numbers >= 0 and < half_bandwidth (0: ground state)",
@@ -182,15 +222,74 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                         "temperatures of the linear conductance G(T) through the dot",
                                         lambda v: _number_list(v, 0.0, False) or _log_range(v),
                                         convert=_temperature_tuple),
-        "memory_budget": Key(NUM, 1.0, "GB", "> 0",
+        "memory_budget": Key(NUM, 1.0, "GB", "> 0 and <= 10000",
                              "eigenvectors kept in memory for the spectral pass; the rest goes to a temporary file",
-                             lambda m: _finite(m) and m > 0),
+                             lambda m: _finite(m) and 0 < m <= 1e4),
     },
     "output": {
         "file": Key(str, None, "path", "writable path ending in .h5 (default: <config name>.h5 in the current folder)",
                     "HDF5 result file"),
     },
 }
+
+#: The [impurity] keys each model uses besides ``model`` (the one place; a model registry can take it over).
+#: Any other [impurity] key given explicitly is an error naming the model and these keys.
+MODEL_KEYS: dict[str, tuple[str, ...]] = {
+    "kondo": ("exchange", "potential_scattering", "field"),
+    "spin-kondo": ("exchange", "potential_scattering", "spin", "field"),
+    "two-channel-kondo": ("exchange", "exchange_second_channel", "field"),
+    "anderson": ("level", "interaction", "hybridization", "field"),
+    "resonant-level": ("level", "hybridization", "field"),
+}
+
+#: The [bath] keys each shape uses besides ``shape``.
+SHAPE_KEYS: dict[str, tuple[str, ...]] = {
+    "flat": ("half_bandwidth",),
+    "semicircular": ("half_bandwidth",),
+    "power-law": ("half_bandwidth", "exponent"),
+    "table": ("table",),
+}
+
+
+def used_keys(table: str, choice: str) -> tuple[str, ...]:
+    """Keys of ``[impurity]`` (``choice`` = model) or ``[bath]`` (``choice`` = shape) that are used.
+
+    Other tables use all their keys; the selecting key itself (``model``, ``shape``) is included.
+    """
+    if table == "impurity":
+        return ("model",) + MODEL_KEYS[choice]
+    if table == "bath":
+        return ("shape",) + SHAPE_KEYS[choice]
+    return tuple(SCHEMA[table])
+
+
+def check_used_keys(given: dict, models, shapes, where: str = "") -> None:
+    """Refuse keys given in [impurity] or [bath] that none of the models (shapes) uses.
+
+    Parameters
+    ----------
+    given : dict
+        ``{table: {key: value}}`` as written in the config (defaults not filled in), or
+        ``{table: [key, ...]}``.
+    models, shapes : iterable of str
+        The models (bath shapes) the config runs: the one given, or every value a sweep takes.
+    where : str
+        Prefix for the message (e.g. "sweep." for swept parameters).
+
+    Raises
+    ------
+    ConfigError
+        Naming the key, the model (shape) and the keys it uses.
+    """
+    for table, choices, label, declared in (("impurity", tuple(models), "model", MODEL_KEYS),
+                                            ("bath", tuple(shapes), "shape", SHAPE_KEYS)):
+        used = set().union(*(used_keys(table, c) for c in choices))
+        for key in given.get(table, ()):
+            if key in SCHEMA[table] and key not in used:
+                names = " or ".join(f'"{c}"' for c in choices)
+                uses = "; ".join(f'"{c}" uses {", ".join(declared[c])}' for c in choices)
+                raise ConfigError(f"{where}{table}.{key}: not used by {label} {names}; remove it ({uses})")
+
 
 SWEEP_NOTE = ("[sweep] maps a parameter name 'table.key' to a list of values, or to a table "
               "{ start, stop, points, spacing = \"linear\" | \"log\" }; [sweep] folder names the output folder")
@@ -339,6 +438,14 @@ def _type_name(kind):
     return "a string"
 
 
+def show(value, limit: int = 60) -> str:
+    """A short repr of a received value for messages: numpy scalars as plain numbers, long text cut."""
+    if hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        value = value.item()
+    text = repr(value)
+    return text if len(text) <= limit else f"{text[:limit - 20]}... ({len(text)} characters)"
+
+
 def _check_value(table, key, spec: Key, value):
     name = f"{table}.{key}"
     kind = spec.kind
@@ -346,19 +453,20 @@ def _check_value(table, key, spec: Key, value):
     if kind is bool:
         ok_type = isinstance(value, bool)
     if not ok_type:
-        raise ConfigError(f"{name}: expected {_type_name(kind)}, got {type(value).__name__} {value!r}")
+        raise ConfigError(f"{name}: expected {_type_name(kind)}, got {type(value).__name__} {show(value)}")
     if spec.choices is not None and value not in spec.choices:
-        raise ConfigError(f"{name}: got {value!r}; allowed: {spec.allowed}{_suggest(str(value), spec.choices)}")
+        raise ConfigError(f"{name}: got {show(value)}; allowed: {spec.allowed}"
+                          f"{_suggest(str(value)[:100], spec.choices)}")
     if spec.check is not None and not spec.check(value):
         if isinstance(value, (list, dict)):
-            raise ConfigError(f"{name}: expected {spec.allowed}, got {value!r}")
-        raise ConfigError(f"{name}: got {value!r}; allowed range: {spec.allowed}")
+            raise ConfigError(f"{name}: expected {spec.allowed}, got {show(value)}")
+        raise ConfigError(f"{name}: got {show(value)}; allowed range: {spec.allowed}")
     if spec.convert is not None:
         return spec.convert(value)
     return float(value) if kind is NUM else value
 
 
-def parse_config(text: str, path: str = "<config>") -> RunSpec:
+def parse_config(text: str, path: str = "<config>", stored: bool = False) -> RunSpec:
     """Parse and validate config text.
 
     Parameters
@@ -367,6 +475,9 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
         TOML text.
     path : str
         Name used in messages; table paths are resolved relative to its folder.
+    stored : bool
+        The text comes from a result file: keys the model does not use are
+        tolerated (older versions wrote every key); everything else is checked.
 
     Returns
     -------
@@ -377,6 +488,10 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
     ConfigError
         For malformed TOML, unknown tables or keys, wrong types, out-of-range values.
     """
+    if not isinstance(text, str):
+        raise ConfigError(f"{path}: expected config text, got {type(text).__name__}")
+    if text.startswith("\ufeff"):
+        text = text[1:]        # a UTF-8 byte-order mark (some editors write one) is not part of the TOML
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -402,7 +517,25 @@ def parse_config(text: str, path: str = "<config>") -> RunSpec:
             else:
                 values[table][key] = spec.default
     sweep = _parse_sweep(sweep_raw) if sweep_raw is not None else SweepSpec()
+    if not stored:
+        _check_used(raw, values, sweep)
     return _build(values, text, path, sweep, check_cross=True)
+
+
+def _check_used(raw, values, sweep):
+    check_used_keys(raw, _swept_or(sweep, "impurity.model", values["impurity"]["model"]),
+                    _swept_or(sweep, "bath.shape", values["bath"]["shape"]))
+    check_used_keys({t: [n.split(".", 1)[1] for n in sweep.parameters if n.startswith(t + ".")]
+                     for t in ("impurity", "bath")},
+                    _swept_or(sweep, "impurity.model", values["impurity"]["model"]),
+                    _swept_or(sweep, "bath.shape", values["bath"]["shape"]), where="sweep: ")
+
+
+def _swept_or(sweep: "SweepSpec", name: str, value) -> tuple:
+    """The values a sweep gives parameter ``name``, or the single configured value."""
+    if name in sweep.parameters:
+        return tuple(sweep.values[sweep.parameters.index(name)])
+    return (value,)
 
 
 def _parse_sweep(raw) -> SweepSpec:
@@ -425,29 +558,58 @@ def _parse_sweep(raw) -> SweepSpec:
             extra = set(spec) - {"start", "stop", "points", "spacing"}
             if extra:
                 raise ConfigError(f"sweep.{name}: unknown key {sorted(extra)[0]!r}; allowed: start, stop, points, spacing")
-            try:
-                start, stop, points = float(spec["start"]), float(spec["stop"]), int(spec["points"])
-            except (KeyError, TypeError, ValueError):
-                raise ConfigError(f"sweep.{name}: a range needs numbers start, stop and an integer points >= 1") from None
-            spacing = spec.get("spacing", "linear")
-            if points < 1 or spacing not in ("linear", "log"):
-                raise ConfigError(f"sweep.{name}: points must be >= 1 and spacing \"linear\" or \"log\"")
-            if spacing == "log":
-                if start <= 0 or stop <= 0:
-                    raise ConfigError(f"sweep.{name}: a log range needs start > 0 and stop > 0")
-                vals = [start * (stop / start) ** (i / max(points - 1, 1)) for i in range(points)]
-            else:
-                vals = [start + (stop - start) * i / max(points - 1, 1) for i in range(points)]
+            vals = _range_values(name, spec, SCHEMA[table][key].kind is int)
         else:
             raise ConfigError(f"sweep.{name}: expected a list of values or a range table")
         if not vals:
             raise ConfigError(f"sweep.{name}: empty list of values")
+        if len(vals) > MAX_SWEEP_POINTS:
+            raise ConfigError(f"sweep.{name}: got {len(vals)} values; allowed: at most {MAX_SWEEP_POINTS}")
         checked = tuple(_check_value(table, key, SCHEMA[table][key], v) for v in vals)
         names.append(name)
         lists.append(checked)
     if not names:
         raise ConfigError("sweep: name at least one parameter, e.g. \"impurity.exchange\" = [0.1, 0.2]")
+    total = math.prod(len(v) for v in lists)
+    if total > MAX_SWEEP_POINTS:
+        raise ConfigError(f"sweep: the parameters give {total} points; allowed: at most {MAX_SWEEP_POINTS} "
+                          f"(split the sweep)")
     return SweepSpec(tuple(names), tuple(lists), folder)
+
+
+#: Points of one sweep (the outer product of all swept values): every point is a full run.
+MAX_SWEEP_POINTS = 10_000
+
+
+def _range_values(name: str, spec: dict, integer: bool) -> list:
+    """Values of a sweep range table { start, stop, points, spacing }; integers for integer keys."""
+    missing = [k for k in ("start", "stop", "points") if k not in spec]
+    if missing:
+        raise ConfigError(f"sweep.{name}: a range needs start, stop and points; missing {missing[0]!r}")
+    start, stop, points = spec["start"], spec["stop"], spec["points"]
+    for k, v in (("start", start), ("stop", stop)):
+        if not _finite(v):
+            raise ConfigError(f"sweep.{name}.{k}: got {show(v)}; allowed: a finite number")
+        if integer and not isinstance(v, int):
+            raise ConfigError(f"sweep.{name}.{k}: got {show(v)}; allowed: an integer ({name} takes integers)")
+    if not isinstance(points, int) or isinstance(points, bool) or not 1 <= points <= MAX_SWEEP_POINTS:
+        raise ConfigError(f"sweep.{name}.points: got {show(points)}; allowed: an integer from 1 to {MAX_SWEEP_POINTS}")
+    spacing = spec.get("spacing", "linear")
+    if spacing not in ("linear", "log"):
+        raise ConfigError(f"sweep.{name}.spacing: got {show(spacing)}; allowed: \"linear\" or \"log\"")
+    a, b = float(start), float(stop)
+    if spacing == "log":
+        if a <= 0 or b <= 0:
+            raise ConfigError(f"sweep.{name}: a log range needs start > 0 and stop > 0")
+        vals = [a * (b / a) ** (i / max(points - 1, 1)) for i in range(points)]
+    else:
+        vals = [a + (b - a) * i / max(points - 1, 1) for i in range(points)]
+    if integer:
+        vals = [int(round(v)) for v in vals]
+        if len(set(vals)) != len(vals):
+            raise ConfigError(f"sweep.{name}: {points} points between {start} and {stop} repeat integers; "
+                              f"allowed: at most {abs(stop - start) + 1} points")
+    return vals
 
 
 def _build(values, text, path, sweep, check_cross) -> RunSpec:
@@ -486,6 +648,7 @@ def _cross_checks(spec: RunSpec):
                           f"(got {run.thermodynamics!r}, whose temperatures are T_N = ω_N/beta_bar)")
     if run.lowest_temperature >= bath.half_bandwidth:
         raise ConfigError(f"run.lowest_temperature: got {run.lowest_temperature}; allowed range: > 0 and < half_bandwidth")
+    _check_scales(spec)
     sp = spec.spectral
     if sp is not None:
         asked = "temperatures" if sp.temperatures else "conductance_temperatures"
@@ -499,6 +662,21 @@ def _cross_checks(spec: RunSpec):
                                   f"got {max(ts)}")
     if spec.output.file is not None and not spec.output.file.endswith((".h5", ".hdf5")):
         raise ConfigError(f"output.file: got {spec.output.file!r}; allowed: a path ending in .h5")
+
+
+def _check_scales(spec: RunSpec):
+    """Energies relative to the half-bandwidth D (see MAX_ENERGY, MIN_TEMPERATURE_RATIO)."""
+    imp, D = spec.impurity, spec.bath.half_bandwidth
+    limits = (("level", imp.level, MAX_ENERGY), ("interaction", imp.interaction, 2 * MAX_ENERGY),
+              ("hybridization", imp.hybridization, MAX_ENERGY), ("field", imp.field, MAX_ENERGY))
+    for key, value, limit in limits:
+        if value is not None and abs(value) > limit * D:
+            raise ConfigError(f"impurity.{key}: got {show(value)}; allowed range: {SCHEMA['impurity'][key].allowed} "
+                              f"(D = half_bandwidth = {D:g})")
+    t = spec.run.lowest_temperature
+    if t < MIN_TEMPERATURE_RATIO * D:
+        raise ConfigError(f"run.lowest_temperature: got {show(t)}; allowed range: "
+                          f"{SCHEMA['run']['lowest_temperature'].allowed} (D = {D:g})")
 
 
 def _given(spec, table):

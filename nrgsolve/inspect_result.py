@@ -64,7 +64,7 @@ def convergence(stored: StoredResult) -> dict:
 
 def _spec(stored: StoredResult):
     text = stored.attrs.get("config_text", "")
-    return parse_config(text, stored.attrs.get("config_path", "<stored config>") or "<stored config>")
+    return parse_config(text, stored.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
 
 
 def derived_warnings(stored: StoredResult) -> list[str]:
@@ -95,7 +95,12 @@ def derived_warnings(stored: StoredResult) -> list[str]:
             out.append(f"lowest temperature not reached: {low:.3g} D > requested {want:.3g} D")
         kondo_like = spec.impurity.model in ("kondo", "spin-kondo", "anderson")
         if kondo_like and not math.isfinite(_number(stored.summary.get("kondo_temperature_crossover"))):
-            out.append("Kondo temperature not reached (T·χ never fell below 0.07 in (g μ_B)²/k_B)")
+            tchi = np.asarray(stored.thermodynamics.get("T_chi_imp", []), dtype=float)
+            if tchi.size and np.all(tchi < 0.07):
+                out.append("Kondo temperature not found: T·χ is below 0.07 (g μ_B)²/k_B already at the highest "
+                           "temperature stored; the Kondo scale is at or above it")
+            else:
+                out.append("Kondo temperature not reached (T·χ never fell below 0.07 in (g μ_B)²/k_B)")
     return out
 
 

@@ -203,7 +203,7 @@ def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8)
 def _parsed(result: StoredResult):
     try:
         return parse_config(result.attrs.get("config_text", ""),
-                            result.attrs.get("config_path", "<stored config>") or "<stored config>")
+                            result.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
     except NrgInputError:
         return None
 

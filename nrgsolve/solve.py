@@ -28,6 +28,7 @@ from .chain import build_chain
 from .engine import make_symmetry, run_chain, EngineSettings
 from .engine.iterate import Step
 from .models import kondo_block, two_channel_kondo_block, anderson_block, bare_chain_block
+from .finite import check_finite_result
 from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
                           ThermoCurve, KondoSummary, FlowSpectrum)
 from .observables.thermo_fdm import impurity_thermodynamics_fdm, default_temperatures
@@ -284,9 +285,9 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     return curves, transport
 
 
-def _solve_twist_queued(spec, z, queue):
-    cb = (lambda n: queue.put(1)) if queue is not None else None
-    return solve_twist(spec, z, cb)
+def _solve_twist_reporting(spec, z):
+    from .workers import reporter
+    return solve_twist(spec, z, reporter())
 
 
 def n_iterations(spec: RunSpec, bath=None) -> int:
@@ -342,20 +343,12 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
         cb = (lambda n: progress(1)) if progress is not None else None
         results = [solve_twist(spec, z, cb, bath) for z in zs]
     else:
-        import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
-        ctx = mp.get_context("spawn")
-        import contextlib
-        # every twist pins its own BLAS threads (run.blas_threads) inside solve_twist
-        with (ctx.Manager() if progress is not None else contextlib.nullcontext()) as manager:
-            queue = manager.Queue() if manager is not None else None
-            with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-                futs = [pool.submit(_solve_twist_queued, spec, z, queue) for z in zs]
-                while not all(f.done() for f in futs):
-                    _drain(queue, progress, timeout=0.2)
-                _drain(queue, progress, timeout=0.0)
-                results = [f.result() for f in futs]
+        # every twist pins its own BLAS threads (run.blas_threads) inside solve_twist; the workers die with
+        # this process and are stopped on Ctrl-C (nrgsolve.workers)
+        from .workers import map_in_processes
+        results = map_in_processes(_solve_twist_reporting, [(spec, z) for z in zs], workers, progress)
     thermo = average_twists([t.thermo for t in results])
+    check_finite_result(thermo, [t.thermo for t in results], zs)      # NaN/inf never reach a result
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
     warnings = _warnings(spec, results, thermo, summary)
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
@@ -399,20 +392,6 @@ def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
     return labelled, summarize_fixed_points(labelled, temps)
 
 
-def _drain(queue, progress, timeout):
-    if queue is None:
-        time.sleep(timeout)
-        return
-    import queue as _q
-    try:
-        n = queue.get(timeout=timeout) if timeout else queue.get_nowait()
-        progress(n)
-        while True:
-            progress(queue.get_nowait())
-    except _q.Empty:
-        pass
-
-
 #: Largest discarded thermal weight per iteration (fraction of the Boltzmann weight at T_N carried by the
 #: discarded states) before a run warns.  Measured on configs/kondo.toml (Λ = 2.5, 2 twists): 600 kept
 #: states give weights up to 9e-3 and change T·χ_imp by 5e-5, S_imp by 1.1e-3 and T_K by 1e-4 relative to
@@ -437,5 +416,10 @@ def _warnings(spec, results, thermo, summary) -> list:
     elif low > 1.5 * spec.run.lowest_temperature:
         out.append(f"lowest temperature reached {low:.3g} D is above the requested {spec.run.lowest_temperature:.3g} D")
     if summary.kondo_temperature_crossover is None and spec.impurity.model != "two-channel-kondo":
-        out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low enough)")
+        if np.all(np.asarray(thermo.T_chi) < 0.07):
+            out.append("Kondo temperature not found: T·χ_imp is below 0.07 already at the highest temperature "
+                       f"computed ({float(thermo.temperature[-1]):.3g} D); the Kondo scale is at or above it")
+        else:
+            out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low "
+                       "enough)")
     return out

@@ -59,8 +59,8 @@ from .errors import NrgInputError
 from .observables.kondo_scale import WILSON_NUMBER
 from .uncertainty import headline_values
 
-__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "atomic_path",
-           "stored_fixed_points"]
+__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "check_writable",
+           "atomic_path", "stored_fixed_points"]
 
 #: 2: root attributes ``discretization_scheme``, ``thermodynamics_method``, ``wilson_number``; ``/summary``
 #: gains ``chi_zero``, ``gamma_zero``, ``T_chi_lowest``, ``entropy_lowest`` and ``<name>_error``;
@@ -90,8 +90,12 @@ def _git_commit():
         return ""
 
 
-def check_output_path(path: str | Path, force: bool, name: str = "output", suffix: str = ".h5") -> Path:
-    """Refuse an existing output file unless ``force``; create the folder.
+def check_output_path(path: str | Path, force: bool, name: str = "output", suffix: str = ".h5",
+                      create_folder: bool = True) -> Path:
+    """Refuse an existing output file unless ``force``, or a file that cannot be created; create the folder.
+
+    Checked before any work: the name is not empty, not a folder, not too long for
+    the file system, and the folder (or its nearest existing parent) can be written to.
 
     Parameters
     ----------
@@ -102,22 +106,86 @@ def check_output_path(path: str | Path, force: bool, name: str = "output", suffi
         The parameter named in messages (e.g. "output", "--output").
     suffix : str
         The file kind named in messages.
+    create_folder : bool
+        Create missing folders now (False: only check that they could be created).
 
     Raises
     ------
     NrgInputError
-        If the file exists and ``force`` is False, or the path is a folder.
+        If the file exists and ``force`` is False, the path is a folder, or the
+        file cannot be created there.
     """
+    if not str(path).strip():
+        raise NrgInputError(f"{name}: got an empty file name; give a file name ending in {suffix}")
     p = Path(path)
+    check_writable(p, name)
     if p.is_dir():
         raise NrgInputError(f"{name}: {p} is a folder; give a file name ending in {suffix}")
-    if p.exists() and not force:
+    if (p.exists() or p.is_symlink()) and not force:
         raise NrgInputError(f"{name}: {p} already exists; use --force to overwrite or choose another --output")
-    try:
-        p.parent.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise NrgInputError(f"{name}: cannot create folder {p.parent} ({exc.strerror})") from None
+    if create_folder:
+        try:
+            p.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise NrgInputError(f"{name}: cannot create folder {p.parent} ({exc.strerror})") from None
     return p
+
+
+def _short(p) -> str:
+    text = str(p)
+    return text if len(text) <= 120 else f"{text[:60]}...{text[-40:]} ({len(text)} characters)"
+
+
+def check_writable(path: str | Path, name: str = "output") -> None:
+    """Check, before any work, that a file ``path`` can be created (folders may be missing).
+
+    Every missing folder name and the file name must fit the file system's name
+    limit; in an existing folder a temporary file is created and removed; for a
+    missing folder the nearest existing parent must be writable.
+
+    Raises
+    ------
+    NrgInputError
+        Naming ``name`` and the path, with the reason.
+    """
+    p = Path(os.path.abspath(path))
+    existing = p.parent
+    missing = [p.name]
+    try:
+        while not existing.exists():
+            missing.append(existing.name)
+            existing = existing.parent
+        folder_ok = existing.is_dir()
+    except OSError as exc:          # e.g. a folder name too long
+        raise NrgInputError(f"{name}: cannot write {_short(path)} ({exc.strerror or exc})") from None
+    if not folder_ok:
+        raise NrgInputError(f"{name}: cannot write {_short(path)} ({existing} is not a folder)")
+    try:
+        limit = os.pathconf(existing, "PC_NAME_MAX")
+    except (OSError, ValueError, AttributeError):
+        limit = 255
+    for part in missing:
+        if len(os.fsencode(part)) > limit:
+            raise NrgInputError(f"{name}: cannot write {_short(path)} (the name {_short(part)} is longer than the "
+                                f"{limit} bytes the file system allows)")
+    if existing != p.parent:
+        if not os.access(existing, os.W_OK | os.X_OK):
+            raise NrgInputError(f"{name}: cannot write {_short(path)} (folder {existing} is not writable)")
+        return
+    try:
+        fd, probe = tempfile.mkstemp(prefix=_temp_prefix(p), suffix=".part", dir=existing)
+    except OSError as exc:
+        raise NrgInputError(f"{name}: cannot write {_short(path)} ({exc.strerror or exc})") from None
+    os.close(fd)
+    os.unlink(probe)
+
+
+def _temp_prefix(target: Path) -> str:
+    """Hidden temporary name beside the target, short enough for any file system (<= 255 bytes in all)."""
+    stem = target.name
+    while len(os.fsencode(stem)) > 100:
+        stem = stem[:-1]
+    return f".{stem}."
 
 
 def _umask() -> int:
@@ -127,22 +195,47 @@ def _umask() -> int:
 
 
 class atomic_path:
-    """Context manager: yields a temporary path beside ``target``; renames it on success, removes it on failure."""
+    """Context manager: yields a temporary path beside ``target``; renames it on success, removes it on failure.
 
-    def __init__(self, target):
+    With ``exclusive=True`` the final step fails with :class:`NrgInputError` if ``target``
+    exists by then: the temporary file is hard-linked to the target (which fails if the
+    target exists, so checking and creating are one atomic step) and then removed.  On a
+    file system without hard links the target is reserved with ``O_CREAT | O_EXCL`` and
+    the temporary file renamed onto it.  Of two runs writing the same new file, exactly
+    one succeeds.
+    """
+
+    def __init__(self, target, exclusive: bool = False, name: str = "output"):
         self.target = Path(target)
+        self.exclusive = exclusive
+        self.name = name
 
     def __enter__(self):
-        fd, tmp = tempfile.mkstemp(prefix=f".{self.target.name}.", suffix=".part", dir=self.target.parent)
+        fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(self.target), suffix=".part", dir=self.target.parent)
         os.close(fd)
         os.chmod(tmp, 0o666 & ~_umask())    # mkstemp makes 0600; give the final file the usual permissions
         self.tmp = Path(tmp)
         return self.tmp
 
     def __exit__(self, exc_type, exc, tb):
-        if exc_type is None:
+        if exc_type is not None:
+            self.tmp.unlink(missing_ok=True)
+            return False
+        if not self.exclusive:
             os.replace(self.tmp, self.target)
-        else:
+            return False
+        try:
+            try:
+                os.link(self.tmp, self.target)
+            except FileExistsError:
+                raise
+            except OSError:                     # no hard links here: reserve the name, then rename onto it
+                os.close(os.open(self.target, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666 & ~_umask()))
+                os.replace(self.tmp, self.target)
+        except FileExistsError:
+            raise NrgInputError(f"{self.name}: {self.target} already exists (written by another run meanwhile); "
+                                f"use --force to overwrite or choose another --output") from None
+        finally:
             self.tmp.unlink(missing_ok=True)
         return False
 
@@ -200,7 +293,7 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
 
     target = check_output_path(path, force)
     spec = result.spec
-    with atomic_path(target) as tmp:
+    with atomic_path(target, exclusive=not force) as tmp:
         with h5py.File(tmp, "w") as h:
             a = h.attrs
             a["format_version"] = FORMAT_VERSION
@@ -331,6 +424,8 @@ def read_result(path: str | Path) -> StoredResult:
     import h5py
 
     p = Path(path)
+    if p.is_dir():
+        raise NrgInputError(f"{p}: is a folder, not a result file")
     if not p.is_file():
         raise NrgInputError(f"{p}: no such result file")
     try:
@@ -339,7 +434,11 @@ def read_result(path: str | Path) -> StoredResult:
                 raise NrgInputError(f"{p}: not an nrgsolve result file (no format_version attribute)")
             attrs = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in h.attrs.items()}
             twists = []
-            for k in sorted(h["twists"], key=int) if "twists" in h else []:
+            names = list(h["twists"]) if "twists" in h else []
+            odd = [k for k in names if not k.isdigit()]
+            if odd:
+                raise NrgInputError(f"{p}: not a valid result file (unexpected member /twists/{odd[0][:60]})")
+            for k in sorted(names, key=int):
                 gk = h["twists"][k]
                 twists.append({"z": float(gk.attrs["z"]), "flow": _group_dict(gk["flow"]),
                                "diagnostics": _group_dict(gk["diagnostics"]),
@@ -353,8 +452,11 @@ def read_result(path: str | Path) -> StoredResult:
             return StoredResult(str(p), attrs, _group_dict(h["chain"]), _group_dict(h["flow"]),
                                 _group_dict(h["diagnostics"]), _group_dict(h["thermodynamics"]),
                                 twists, summary, warns, spectral=spectral, transport=transport)
-    except (OSError, KeyError) as exc:
-        raise NrgInputError(f"{p}: cannot read result file ({exc})") from None
+    except NrgInputError:
+        raise
+    except (OSError, KeyError, ValueError, TypeError, AttributeError, IndexError, UnicodeDecodeError) as exc:
+        msg = " ".join(str(exc).split())[:200] or exc.__class__.__name__
+        raise NrgInputError(f"{p}: cannot read result file ({msg})") from None
 
 
 def _text(v) -> str:

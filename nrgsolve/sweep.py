@@ -30,17 +30,18 @@ import io
 import itertools
 import math
 import os
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from .config import RunSpec, parse_config
+from .config import RunSpec, parse_config, used_keys
 from .errors import NrgInputError
 from .solve import bath_from_spec, solve
 from .store import atomic_path, read_result, write_result
 
 __all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "FIXED_POINT_COLUMNS", "sweep_points", "spec_to_toml",
-           "default_folder", "point_file_name", "run_sweep", "read_index", "WorkerLost"]
+           "default_folder", "point_file_name", "run_sweep", "read_index", "WorkerLost", "remove_stale_parts"]
 
 #: Summary attributes copied from each point file into ``index.csv``
 #: (temperatures in units of D; NaN means "not reached").
@@ -150,7 +151,8 @@ def spec_to_toml(spec: RunSpec, header: str = "") -> str:
     Every parameter is written out, so the text stays valid even if a
     default changes later; left out are ``None`` values (meaning "use the
     documented fallback"), the ``[output]`` table (a sweep names its own
-    files) and ``impurity.interaction`` of the resonant level (unused there).
+    files) and the keys the model or bath shape does not use
+    (:func:`nrgsolve.config.used_keys`; giving them is an error).
     ``parse_config(spec_to_toml(spec))`` gives back the same parameters.
 
     Parameters
@@ -164,10 +166,10 @@ def spec_to_toml(spec: RunSpec, header: str = "") -> str:
         if table == "output":
             continue
         body = []
+        choice = values["model"] if table == "impurity" else values["shape"] if table == "bath" else None
+        used = used_keys(table, choice)
         for key, value in values.items():
-            if value is None:
-                continue
-            if table == "impurity" and key == "interaction" and values["model"] == "resonant-level":
+            if value is None or key not in used:
                 continue
             body.append(f"{key} = {_toml_value(value)}")
         if body:
@@ -215,13 +217,14 @@ def _comparable(spec: RunSpec) -> dict:
 
 def _stored_matches(stored, point: SweepPoint) -> bool:
     try:
-        got = parse_config(stored.attrs.get("config_text", ""), point.spec.config_path)
+        got = parse_config(stored.attrs.get("config_text", ""), point.spec.config_path, stored=True)
     except NrgInputError:
         return False
     return _comparable(got) == _comparable(point.spec)
 
 
-def _remove_stale_parts(folder: Path) -> list[Path]:
+def remove_stale_parts(folder: Path) -> list[Path]:
+    """Remove temporary ``.part`` files a killed or interrupted sweep left in ``folder``; return them."""
     removed = []
     for pattern in (".point_*.h5.*.part", ".index.csv.*.part"):
         for p in folder.glob(pattern):
@@ -246,24 +249,21 @@ def _run_local(tasks, jobs: int, done: Callable[[int], None]):
             _run_point(*args)
             done(number)
         return
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures import as_completed
     from concurrent.futures.process import BrokenProcessPool
+    from .workers import process_pool, submit_all
 
-    ctx = mp.get_context("spawn")
-    # each point runs its twists serially with run.blas_threads BLAS threads (solve_twist pins them)
-    with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx) as pool:
-        futures = {pool.submit(_run_point, *args): number for number, args in tasks}
+    # each point runs its twists serially with run.blas_threads BLAS threads (solve_twist pins them);
+    # the workers die with this process and are terminated on Ctrl-C or SIGTERM (nrgsolve.workers)
+    with process_pool(min(jobs, len(tasks))) as pool:
+        futs = submit_all(pool, _run_point, [args for _, args in tasks])
+        futures = {f: number for f, (number, _) in zip(futs, tasks)}
         try:
             for fut in as_completed(futures):
                 fut.result()
                 done(futures[fut])
         except BrokenProcessPool:
             raise WorkerLost("a worker process died before finishing its point") from None
-        except BaseException:
-            for f in futures:
-                f.cancel()
-            raise
 
 
 def _import_distributed():
@@ -296,20 +296,41 @@ def _connect(scheduler: str, connect_timeout: float):
 
 
 def _run_cluster(tasks, client, scheduler: str, done: Callable[[int], None]):
+    import asyncio
+    import concurrent.futures
     import distributed
 
+    lost = (OSError, TimeoutError, asyncio.CancelledError, concurrent.futures.CancelledError)
     futures = {}
-    for number, args in tasks:
-        fut = client.submit(_run_point, *args, pure=False, key=f"nrgsolve-point-{number:04d}-{os.getpid()}")
-        futures[fut] = number
-    for fut in distributed.as_completed(list(futures), loop=client.loop):
-        try:
+    try:
+        for number, args in tasks:
+            fut = client.submit(_run_point, *args, pure=False, key=f"nrgsolve-point-{number:04d}-{os.getpid()}")
+            futures[fut] = number
+        for fut in distributed.as_completed(list(futures), loop=client.loop):
             fut.result()
-        except distributed.KilledWorker:
-            raise WorkerLost("a cluster worker died before finishing its point") from None
-        except OSError as exc:          # lost the scheduler (CommClosedError is an OSError)
-            raise WorkerLost(f"lost the connection to the scheduler {scheduler!r} ({exc})") from None
-        done(futures[fut])
+            done(futures[fut])
+    except distributed.KilledWorker:
+        raise WorkerLost("a cluster worker died before finishing its point") from None
+    except lost:   # the scheduler went away (CommClosedError is an OSError; futures are cancelled)
+        raise WorkerLost(f"lost the connection to the scheduler {scheduler!r}") from None
+
+
+@contextmanager
+def _quiet_cluster_logs():
+    """While a sweep talks to a cluster, the cluster library's own log lines (reconnect attempts, tracebacks
+    of a lost scheduler) stay off the terminal; the sweep reports problems in one line itself."""
+    import logging
+    prefixes = ("distributed", "tornado", "asyncio")
+    names = [n for n in list(logging.root.manager.loggerDict)
+             if n.split(".")[0] in prefixes] + list(prefixes)
+    old = {n: logging.getLogger(n).level for n in names}
+    for n in names:
+        logging.getLogger(n).setLevel(logging.CRITICAL + 1)
+    try:
+        yield
+    finally:
+        for n, level in old.items():
+            logging.getLogger(n).setLevel(level)
 
 
 def _row(point: SweepPoint, stored) -> dict:
@@ -414,13 +435,18 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
             todo.append(p)
     if scheduler is not None:
         _import_distributed()
+    with _quiet_cluster_logs():
+        return _run_points(spec, points, existing, todo, folder, jobs, scheduler, progress, connect_timeout)
+
+
+def _run_points(spec, points, existing, todo, folder, jobs, scheduler, progress, connect_timeout) -> SweepOutcome:
     client = _connect(scheduler, connect_timeout) if (scheduler is not None and todo) else None
     try:
         try:
             folder.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise NrgInputError(f"--output-folder: cannot create {folder} ({exc.strerror})") from None
-        _remove_stale_parts(folder)
+        remove_stale_parts(folder)
         if progress is not None:
             for _ in existing:
                 progress(1)
@@ -436,7 +462,10 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
             _run_local(tasks, jobs, done)
     finally:
         if client is not None:
-            client.close()
+            try:
+                client.close(timeout=5)
+            except Exception:       # the scheduler may be gone already; nothing left to close cleanly
+                pass
     rows = []
     for p in points:
         stored = existing.get(p.number)

@@ -24,6 +24,14 @@ A run is described by one TOML file with the tables `[impurity]`, `[bath]`
 the default below.  Unknown tables or keys, wrong types and out-of-range
 values stop the program before any numerics, with a one-line message naming
 the key and the allowed range (and a "did you mean" suggestion for typos).
+A key of `[impurity]` that the chosen model does not use (for example
+`spin` with `model = "kondo"`), or of `[bath]` that the shape does not use,
+is an error naming the model and the keys it uses.  The ranges keep the
+numerics meaningful relative to the bandwidth; their reasons are given
+beside the constants in `nrgsolve/config.py`.  Before a run starts, its
+memory and time are estimated from the kept states (or the energy cutoff),
+the chain length and the twists (`nrgsolve/resources.py`); a run that
+cannot fit into the machine's memory is refused.
 
 Units: energies and temperatures in units of the conduction half-bandwidth
 D (k_B = 1); `exchange` is the dimensionless ρJ with ρ = 1/(2D), positive
@@ -49,7 +57,10 @@ folder = "my_sweep"      # default: <config name>_sweep, relative to the current
 ```
 
 The points are the outer product of all lists (the last parameter varies
-fastest).  Every value is checked like the key itself.  `nrgsolve sweep`
+fastest), at most 10000.  Every value is checked like the key itself.
+Integer keys (e.g. `"run.kept_states" = { start = 100, stop = 200, points
+= 3 }`) take integer `start` and `stop` and give integers; `points` must
+be an integer.  A swept `[impurity]` key must be used by the model.  `nrgsolve sweep`
 writes `point_0000.h5`, `point_0001.h5`, ... and `index.csv` (see
 [results.md](results.md)); each point file stores the resolved config of
 that point alone.

@@ -153,7 +153,7 @@ def test_plot_refuses_existing_pdf_too(results, tmp_path):
 BAD_CONFIGS = [
     ("[run]\nkept_state = 10\n", ["run.kept_state", "did you mean 'kept_states'"]),
     ("[discretization]\nLambda = \"three\"\n", ["discretization.Lambda", "a number"]),
-    ("[discretization]\nLambda = 1.0\n", ["discretization.Lambda", "> 1"]),
+    ("[discretization]\nLambda = 1.0\n", ["discretization.Lambda", ">= 1.2"]),
     ("[discretization]\ntwists = 0\n", ["discretization.twists", ">= 1"]),
     ("[impurity]\nmodel = \"anderson\"\nhybridization = -0.02\n", ["impurity.hybridization", "> 0"]),
     ("[run]\nkept_states = 0\n", ["run.kept_states", ">= 1"]),

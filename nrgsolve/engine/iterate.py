@@ -159,9 +159,13 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
         return {L: len(energies_by_block[L]) for L in labels}, float("inf"), total
     ecut = 0.5 * (Es[n_keep - 1] + Es[n_keep])
     if first and Es[n_keep - 1] - Es[0] < settings.degeneracy_tol:
+        if settings.energy_cutoff is not None:
+            raise NrgInputError(
+                f"run.energy_cutoff: got {settings.energy_cutoff:g}; keeps only the ground multiplet after the first "
+                f"iteration (the first excited level lies at {Es[n_keep]:.3g} ω_N; the cutoff must exceed it)")
         raise NrgInputError(
             f"run.kept_states: got {settings.kept_states}; too small to keep more than the ground "
-            f"multiplet after the first iteration (need at least {int(cum[n_keep]) + 1})")
+            f"multiplet after the first iteration (need at least {int(cum[n_keep - 1]) + 1})")
     kept = {L: int(np.count_nonzero(energies_by_block[L] < ecut)) for L in labels}
     return kept, float(ecut), int(cum[n_keep - 1])
 
