@@ -107,7 +107,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
     r.add_argument("--error-estimate", action="store_true",
                    help="also run with 1.5 x kept states and at a coarser Λ with twice the twists, and give each headline number an "
-                        "uncertainty (same as run.error_estimate = true; about 5 x the time)")
+                        "uncertainty (same as run.error_estimate = true; about 3 x the time)")
     r.set_defaults(func=cmd_run)
     from . import cli_extra
     cli_extra.add_commands(sub)

@@ -189,7 +189,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             convert=_temperature_tuple),
         "error_estimate": Key(bool, False, "-", "true | false",
                               "repeat the run with 1.5 × kept_states, and at Λ^1.25 with twice the twists, and give every "
-                              "headline number an uncertainty (about 5 × the cost of a plain run)"),
+                              "headline number an uncertainty (measured: about 3 × the time of a plain run)"),
         "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 and <= 1024 (0: one per twist, at most the CPU count)",
