@@ -127,7 +127,7 @@ def format_with_error(value, error, unit: str = "") -> str:
     if value is None:
         return "not reached"
     if error is None or not math.isfinite(error) or error <= 0:
-        return f"{value:.5g}{u}"
+        return f"{value:.6g}{u}"
     exp = int(math.floor(math.log10(abs(value)))) if value != 0 else 0
     if abs(exp) <= 2:
         exp = 0
