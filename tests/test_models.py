@@ -522,11 +522,11 @@ def test_anderson_field_response_linear_below_tk_and_saturating_above(field_runs
     th0, thh = by_h[0.0].thermo, by_h[1e-3].thermo
     hot = th0.temperature > 0.1
     np.testing.assert_allclose(thh.T_chi[hot], th0.T_chi[hot], atol=1e-3)
-    # 2 T_K < T < h/4 (with the adaptive scheme's full coupling T_K ≈ 1e-4 D, so h/T_K is only ≈ 10):
-    # T·χ_imp in the field is below half its zero-field value (measured 35 % and 42 %)
-    cold = (th0.temperature > 2 * tk) & (th0.temperature < 2.6e-4)
+    # T_K < T < h/4 (with the adaptive scheme's full coupling T_K ≈ 1.1e-4 D, so h/T_K is only ≈ 10):
+    # T·χ_imp in the field is below 40 % of its zero-field value (measured 15 % to 35 %)
+    cold = (th0.temperature > tk) & (th0.temperature < 2.6e-4)
     assert cold.sum() >= 2
-    assert np.all(thh.T_chi[cold] < 0.5 * th0.T_chi[cold])
+    assert np.all(thh.T_chi[cold] < 0.4 * th0.T_chi[cold])
 
 
 def test_impurity_magnetization_is_stored(field_runs, tmp_path):
