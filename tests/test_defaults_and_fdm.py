@@ -159,14 +159,16 @@ def test_kondo_temperature_does_not_depend_on_lambda_with_defaults(model):
     """With the default discretization and thermodynamics, T_K of the Kondo model (ρJ = 0.15) and of the
     symmetric Anderson model (U = 0.1 D, Γ = 0.005 D) agree within 3 % between Λ = 2, 2.5, 3 and 4 in the
     crossover definition, and between Λ = 2.5, 3 and 4 in Wilson's (common practice, no source: physical
-    results do not depend on a faithful discretization).  At Λ = 2 (given 2000 kept states) Wilson's T_K
-    is not reached: the full-density-matrix T·χ_imp keeps an offset of 1e-4 far below T_K there, so
-    χ_imp(0) does not come out flat (measured; a known limit, see the README)."""
+    results do not depend on a faithful discretization).  At Λ = 2 Wilson's T_K is not reached even with
+    2000 kept states: the full-density-matrix T·χ_imp keeps an offset of 1e-4 far below T_K there, so
+    χ_imp(0) does not come out flat (measured; a known limit, see the README); the Λ = 2 run therefore
+    stops a decade or two below T_K."""
     tks = {"wilson": [], "crossover": []}
     for lam in (2.0, 2.5, 3.0, 4.0):
-        extra = "kept_states = 2000" if lam == 2.0 else ""
-        text = (kondo(0.15, f"Lambda = {lam}", extra, lowest=1e-8) if model == "kondo"
-                else anderson(f"Lambda = {lam}", extra, lowest=1e-10))
+        if model == "kondo":
+            text = kondo(0.15, f"Lambda = {lam}", "", lowest=1e-5 if lam == 2.0 else 1e-8)
+        else:
+            text = anderson(f"Lambda = {lam}", "", lowest=1e-7 if lam == 2.0 else 1e-10)
         s = run(text).summary
         if lam > 2.0:
             tks["wilson"].append(s.kondo_temperature_wilson)
@@ -263,11 +265,11 @@ exchange = 0.3
 [discretization]
 Lambda = 4.0
 [run]
-lowest_temperature = 1e-9
+lowest_temperature = 1e-8
 error_estimate = true
 """)
     th = res.thermo
-    low = th.temperature < 1e-7
+    low = th.temperature < 1e-6
     plateau = th.entropy[low]
     assert np.ptp(plateau) < 0.005 * 0.5 * LN2
     assert np.all(np.abs(plateau - 0.5 * LN2) < 0.04 * 0.5 * LN2), plateau
