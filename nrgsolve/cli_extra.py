@@ -112,8 +112,17 @@ def cmd_plot_flow(args) -> int:
 def cmd_plot_thermo(args) -> int:
     """Draw T·χ, entropy or specific heat of one or more result files on one axis."""
     from .plots import plot_thermo
-    return _plot(args, args.files, f"thermo_{args.quantity}.png",
-                 lambda r: plot_thermo(r, quantity=args.quantity, scale=args.scale, exact=args.exact))
+
+    def draw(results):
+        try:
+            return plot_thermo(results, quantity=args.quantity, scale=args.scale, exact=args.exact)
+        except NrgInputError as exc:      # the library names its arguments; here they are flags
+            msg = str(exc)
+            if msg.startswith("exact: "):
+                msg = "--exact: " + msg[len("exact: "):].replace('scale = "kondo"', "--scale kondo")
+            raise NrgInputError(msg) from None
+
+    return _plot(args, args.files, f"thermo_{args.quantity}.png", draw)
 
 
 def cmd_plot_spectral(args) -> int:

@@ -349,18 +349,18 @@ def _exact_models(results, quantity, scale):
     from .exact.runs import exact_model
 
     if scale != "kondo":
-        raise NrgInputError("--exact: needs --scale kondo (the exact curves are functions of T/T_K)")
+        raise NrgInputError("exact: needs scale = \"kondo\" (the exact curves are functions of T/T_K)")
     if quantity not in _EXACT_FIELDS:
-        raise NrgInputError(f"--exact: no exact curve for quantity {quantity!r}; allowed: T_chi, entropy, heat")
+        raise NrgInputError(f"exact: no exact curve for quantity {quantity!r}; allowed: T_chi, entropy, heat")
     models = []
     for r in results:
         spec = _parsed(r)
         if spec is None:
-            raise NrgInputError(f"--exact: {r.path}: the stored config does not parse; cannot tell its model")
+            raise NrgInputError(f"exact: {r.path}: the stored config does not parse; cannot tell its model")
         try:
             m = exact_model(spec)
         except NrgInputError as exc:
-            raise NrgInputError(f"--exact: {r.path}: {exc}") from None
+            raise NrgInputError(f"exact: {r.path}: {exc}") from None
         if m not in models:
             models.append(m)
     return models
@@ -381,7 +381,7 @@ def _exact_curves(results, models, quantity, scales):
     for k, spin in models:
         tc = bethe_ansatz.crossover_temperature(k, spin, CROSSOVER_VALUE)
         if tc is None:
-            raise NrgInputError(f"--exact: the exact T·χ of k = {k}, S = {spin:g} never falls to "
+            raise NrgInputError(f"exact: the exact T·χ of k = {k}, S = {spin:g} never falls to "
                                 f"{CROSSOVER_VALUE}; no crossover T_K to scale it with")
         x = np.logspace(max(math.log10(lo), -5.0), min(math.log10(hi), 4.0), 300)
         r = bethe_ansatz.kondo_thermodynamics(x * tc, k, spin)
