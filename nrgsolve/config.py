@@ -339,6 +339,12 @@ class DiscretizationSpec:
     scheme: str
     wilson_correction: bool
 
+    @property
+    def corrects_coupling(self) -> bool:
+        """True when the coupling is multiplied by A_Λ: Wilson's scheme with the correction on (the adaptive
+        scheme needs none and ignores ``wilson_correction``)."""
+        return self.wilson_correction and self.scheme == "wilson"
+
 
 @dataclass(frozen=True)
 class RunSettings:

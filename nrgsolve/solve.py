@@ -182,9 +182,10 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     bath = bath_from_spec(spec) if bath is None else bath
     d, r = spec.discretization, spec.run
     D = bath.half_bandwidth
+    fdm = r.thermodynamics == "full-density-matrix"
     n_sites = chain_sites(spec, z, D)
     chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme,
-                        wilson_correction=d.wilson_correction and d.scheme == "wilson")
+                        wilson_correction=d.corrects_coupling)
     block, n_channels = _model_block(spec, chain, bath)
     sym = make_symmetry(r.symmetry, n_channels)
     initial = sym.from_explicit(block)
@@ -221,15 +222,14 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
                            energy_scale(n, d.Lambda, z, D, d.scheme)) for n in range(1, n_sites)]
         # full density matrix: the bath run discards above the impurity run's truncation energy of each
         # iteration, so that both runs drop the same part of the spectrum and the method's errors cancel
-        cutoffs = ({rec.index: rec.truncation_energy for rec in res.records}
-                   if r.thermodynamics == "full-density-matrix" else None)
+        cutoffs = {rec.index: rec.truncation_energy for rec in res.records} if fdm else None
         bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                                    flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric(),
                                    cutoffs=cutoffs)
         bres = run_chain(bare, 0, energy_scale(0, d.Lambda, z, D, d.scheme), sym, bsteps, bsettings, None)
         bath_records = bres.records
         diag += bres.diag_seconds
-    if r.thermodynamics == "full-density-matrix":
+    if fdm:
         thermo = impurity_thermodynamics_fdm(res.records, run_temperatures(spec, D), n_channels=n_channels,
                                              abelian=(r.symmetry == "abelian"), bath_records=bath_records,
                                              chain_onsite=chain.onsite, chain_hopping=chain.hopping)

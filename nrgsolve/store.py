@@ -309,7 +309,7 @@ def write_result(result, path: str | Path, force: bool = False) -> Path:
             a["symmetry"] = spec.run.symmetry
             a["model"] = spec.impurity.model
             a["discretization_scheme"] = spec.discretization.scheme
-            a["wilson_correction"] = bool(spec.discretization.wilson_correction and spec.discretization.scheme == "wilson")
+            a["wilson_correction"] = bool(spec.discretization.corrects_coupling)
             a["thermodynamics_method"] = spec.run.thermodynamics
             a["wilson_number"] = WILSON_NUMBER
             tw = result.twists
