@@ -52,7 +52,7 @@ from .bath import Bath
 from .discretize import SCHEMES, Star, _check_lambda_z, discretize
 from .errors import NrgInputError, NrgNumericalError
 
-__all__ = ["Chain", "tridiagonalize", "build_chain", "chain_length", "intervals_for_chain"]
+__all__ = ["Chain", "tridiagonalize", "build_chain", "energy_scale", "sites_needed", "intervals_for_chain"]
 
 _GUARD_BITS = 48          # beyond float64's 53 bits
 _MAX_BITS = 1 << 15
@@ -367,55 +367,30 @@ def build_chain(bath, Lambda, z, n_sites, scheme="wilson", wilson_correction=Fal
     return tridiagonalize(star, int(n_sites))
 
 
-def chain_length(lowest_temperature, Lambda, beta_bar, half_bandwidth=1.0):
-    """Number of chain sites needed to reach a temperature.
+def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
+    """The energy unit of iteration N (the chain through site N), ω_N(z) = D c_Λ · Λ^{−(N−1)/2} · Λ^{1−z}.
 
-    Iteration N (sites 0..N) has the energy unit
-    ω_N = D (1+Λ⁻¹)/2 · Λ^{−(N−1)/2} and the temperature T_N = ω_N/β̄.
+    Units of D.  c_Λ is the large-n limit of t_n Λ^{n/2}/D for the flat band at z = 1:
+    (1+1/Λ)/2 for Wilson's scheme (Wilson 1975), (1−1/Λ)/ln Λ for the adaptive scheme
+    (Žitko & Pruschke 2009), so that the last hopping in units of ω_N tends to 1.  The factor
+    Λ^{1−z} makes the scales of different twists interleave.
 
-    Parameters
-    ----------
-    lowest_temperature : float
-        T > 0, units of D (k_B = 1).
-    Lambda : float
-        Λ > 1.
-    beta_bar : float
-        β̄ > 0 (dimensionless).
-    half_bandwidth : float, optional
-        D > 0.
-
-    Returns
-    -------
-    int
-        N + 1 for the smallest N ≥ 1 with T_N ≤ `lowest_temperature`.
-
-    Raises
-    ------
-    NrgInputError
-        Naming ``run.lowest_temperature``, ``discretization.Lambda``,
-        ``run.beta_bar`` or ``bath.half_bandwidth``.
+    Examples
+    --------
+    >>> round(energy_scale(1, 2.0), 12)
+    0.75
     """
-    def positive(x):
-        return (not isinstance(x, bool) and isinstance(x, (int, float, np.integer, np.floating))
-                and math.isfinite(x) and x > 0)
+    c = 0.5 * (1 + 1 / Lambda) if scheme == "wilson" else (1 - 1 / Lambda) / math.log(Lambda)
+    return half_bandwidth * c * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
 
-    if not positive(lowest_temperature):
-        raise NrgInputError(f"run.lowest_temperature: must be a finite number > 0, got {lowest_temperature!r}")
-    if not positive(Lambda) or Lambda <= 1:
-        raise NrgInputError(f"discretization.Lambda: must be > 1 (and finite), got {Lambda!r}")
-    if not positive(beta_bar):
-        raise NrgInputError(f"run.beta_bar: must be a finite number > 0, got {beta_bar!r}")
-    if not positive(half_bandwidth):
-        raise NrgInputError(f"bath.half_bandwidth: must be a finite number > 0, got {half_bandwidth!r}")
-    lam = float(Lambda)
 
-    def temperature(n):
-        return half_bandwidth * (1 + 1 / lam) / 2 * lam ** (-(n - 1) / 2) / beta_bar
+def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
+                 half_bandwidth: float = 1.0, scheme: str = "wilson") -> int:
+    """Chain sites 0..N+1, N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature (units of D).
 
-    guess = 1 + 2 * math.log(half_bandwidth * (1 + 1 / lam) / (2 * beta_bar * lowest_temperature)) / math.log(lam)
-    n = max(1, math.ceil(guess) - 1)
-    while n > 1 and temperature(n - 1) <= lowest_temperature:
-        n -= 1
-    while temperature(n) > lowest_temperature:
-        n += 1
-    return n + 1
+    One iteration more than N, so that the even-N and the odd-N points (averaged separately) both
+    reach the lowest temperature.
+    """
+    w0 = energy_scale(1, Lambda, z, half_bandwidth, scheme) / beta_bar
+    N = max(1, 1 + math.ceil(2 * math.log(w0 / lowest_temperature) / math.log(Lambda) - 1e-9))
+    return N + 2

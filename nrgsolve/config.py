@@ -17,11 +17,15 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field, fields, make_dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import ConfigError
+from .models.registry import model as model_declaration, model_names, impurity_parameters
+from .keys import (Key, NUM, finite, MAX_ENERGY, MAX_EXPONENT, MIN_LAMBDA,
+                   MAX_LAMBDA, MAX_TWISTS, MIN_BETA_BAR, MAX_BETA_BAR, MAX_KEPT_STATES, MAX_ENERGY_CUTOFF,
+                   MIN_TEMPERATURE_RATIO, MAX_FLOW_LEVELS)
 
 __all__ = [
     "SCHEMA", "RunSpec", "ImpuritySpec", "BathSpec", "DiscretizationSpec", "RunSettings",
@@ -29,69 +33,16 @@ __all__ = [
     "MODELS",
 ]
 
-MODELS = ("kondo", "anderson", "resonant-level", "spin-kondo", "two-channel-kondo")
+MODELS = model_names()
 BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
 SYMMETRIES = ("su2", "abelian")
 THERMO_METHODS = ("full-density-matrix", "conventional")
 
 
-@dataclass(frozen=True)
-class Key:
-    """Declaration of one config key."""
-
-    kind: type | tuple          # accepted python type(s) after TOML parsing
-    default: Any
-    unit: str
-    allowed: str                # human-readable allowed range
-    meaning: str
-    check: Callable[[Any], bool] | None = None
-    choices: tuple | None = None
-    convert: Callable[[Any], Any] | None = None   # applied after the checks (e.g. list -> tuple)
-
-
-def _finite(x):
-    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
-
-
-NUM = (int, float)
-
-# Ranges that keep the numerics meaningful; each is documented in the "allowed" column of docs/config.md.
-#: |ρJ|, |ρK|: at ρJ = 1 the exchange J = 2D equals the bandwidth and the Kondo scale is of the order of D
-#: (strong-coupling limit); larger couplings only describe that limit and drive the first iterations into
-#: overflow (ρJ = 1e100 gave NaN specific heats).
-MAX_COUPLING = 1.0
-#: |ε_d|, Γ, |h| (and U/2) in units of the half-bandwidth D: ten bandwidths is far outside the band (the impurity
-#: state is frozen out or the level is locked to site 0), beyond which the answer is that limit.
-MAX_ENERGY = 10.0
-#: Power-law bath exponent r (pseudogap g = |ε/D|^r): the physically studied range is 0 <= r <= 2 or so.
-MAX_EXPONENT = 4.0
-#: Λ: below 1.2 the chain length grows like 2 ln(D/T)/ln Λ beyond a thousand sites for the temperatures
-#: of interest (Λ = 1.0000001 asked for 3.7e8 sites); above 10 the discretization has fewer than one site
-#: per decade of energy.
-MIN_LAMBDA, MAX_LAMBDA = 1.2, 10.0
-#: Twists: z-averaging converges with a few (2 to 8 are usual); 64 is a generous ceiling on the run time.
-MAX_TWISTS = 64
-#: β̄: T_N = ω_N/β̄ must lie within the kept spectrum (a few ω_N; β̄ >= 0.1) and above the level spacing of
-#: the finite chain (β̄ <= 10); outside this the thermodynamics measure truncation or discreteness.
-MIN_BETA_BAR, MAX_BETA_BAR = 0.1, 10.0
-#: Hard ceiling on kept states; the memory estimate (nrgsolve.resources) refuses most runs well below it.
-MAX_KEPT_STATES = 1_000_000
-#: energy_cutoff (units of ω_N): typical values are 5 to 10; the kept count grows about exponentially with it.
-MAX_ENERGY_CUTOFF = 100.0
-#: lowest_temperature / half_bandwidth: 1e-30 needs 760 chain sites at Λ = 1.2, already hours of work.
-MIN_TEMPERATURE_RATIO = 1e-30
-#: flow_levels: the flow plot draws a few tens; 2000 per iteration is still small on disk.
-MAX_FLOW_LEVELS = 2000
-
-
-def _coupling(x):
-    return _finite(x) and abs(x) <= MAX_COUPLING
-
-
 def _number_list(v, low, allow_low, longest=64):
     return (isinstance(v, list) and 1 <= len(v) <= longest
-            and all(_finite(x) and (x >= low if allow_low else x > low) for x in v))
+            and all(finite(x) and (x >= low if allow_low else x > low) for x in v))
 
 
 def _log_range(v, most=400):
@@ -99,7 +50,7 @@ def _log_range(v, most=400):
     if not isinstance(v, dict) or set(v) != {"start", "stop", "points"}:
         return False
     a, b, n = v["start"], v["stop"], v["points"]
-    return (_finite(a) and _finite(b) and 0 < a < b and isinstance(n, int) and not isinstance(n, bool)
+    return (finite(a) and finite(b) and 0 < a < b and isinstance(n, int) and not isinstance(n, bool)
             and 2 <= n <= most)
 
 
@@ -110,43 +61,48 @@ def _temperature_tuple(v):
     return tuple(float(x) for x in v)
 
 
-# The one place where every default lives.
+def _impurity_table() -> dict:
+    """[impurity]: ``model`` and every model's own parameters, as the model registry declares them."""
+    table = {"model": Key(str, "kondo", "-", " | ".join(MODELS), "impurity model (see docs/config.md, Models)",
+                          choices=MODELS)}
+    table.update(impurity_parameters())
+    return table
+
+
+def _table_data(v) -> bool:
+    """bath.table given as data: { energies = [...], values = [...] }."""
+    return (isinstance(v, dict) and set(v) == {"energies", "values"}
+            and all(isinstance(v[k], (list, tuple)) for k in v))
+
+
+def _table_value(v):
+    """A table path stays a string; table data becomes a validated pair of tuples (energies, values)."""
+    if isinstance(v, str):
+        return v
+    from .bath import _check_table_points
+    e, g = _check_table_points(v["energies"], v["values"], "bath.table", lines=None)
+    return (tuple(float(x) for x in e), tuple(float(x) for x in g))
+
+
+# The one place where every default lives (the [impurity] parameters are declared by the models).
 SCHEMA: dict[str, dict[str, Key]] = {
-    "impurity": {
-        "model": Key(str, "kondo", "-", " | ".join(MODELS), "impurity model", choices=MODELS),
-        "exchange": Key(NUM, 0.15, "ρJ (dimensionless)",
-                        f"|ρJ| <= {MAX_COUPLING:g}; > 0 antiferromagnetic, < 0 ferromagnetic",
-                        "Kondo exchange coupling ρJ, ρ = 1/(2D)", _coupling),
-        "exchange_second_channel": Key(NUM, None, "ρJ (dimensionless)",
-                                       f"|ρJ| <= {MAX_COUPLING:g} (default: equal to exchange)",
-                                       "two-channel Kondo: exchange coupling to the second channel", _coupling),
-        "potential_scattering": Key(NUM, 0.0, "ρK (dimensionless)", f"|ρK| <= {MAX_COUPLING:g}",
-                                    "Kondo model: potential scattering ρK at the impurity site", _coupling),
-        "spin": Key(NUM, 0.5, "ħ", "0.5, 1, 1.5, 2, ...", "spin-Kondo model: impurity spin S",
-                    lambda s: _finite(s) and s > 0 and abs(2 * s - round(2 * s)) < 1e-12 and s <= 4),
-        "level": Key(NUM, None, "D", f"|ε_d| <= {MAX_ENERGY:g} D (default: −interaction/2, the symmetric point)",
-                     "Anderson model: level energy ε_d", _finite),
-        "interaction": Key(NUM, 0.1, "D", f">= 0 and <= {2 * MAX_ENERGY:g} D",
-                           "Anderson model: on-site repulsion U", lambda u: _finite(u) and u >= 0),
-        "hybridization": Key(NUM, 0.01, "D", f"> 0 and <= {MAX_ENERGY:g} D",
-                             "Anderson/resonant level: Γ = πρV² at the Fermi level",
-                             lambda g: _finite(g) and g > 0),
-        "field": Key(NUM, 0.0, "D", f"|h| <= {MAX_ENERGY:g} D (non-zero needs run.symmetry = \"abelian\")",
-                     "Zeeman energy h on the impurity, H = −h S_z", _finite),
-    },
+    "impurity": _impurity_table(),
     "bath": {
         "shape": Key(str, "flat", "-", " | ".join(BATH_SHAPES), "shape g(ε) of the hybridization function",
                      choices=BATH_SHAPES),
         "half_bandwidth": Key(NUM, 1.0, "D", ">= 1e-06 and <= 1e+06", "half-bandwidth D of the conduction band",
-                              lambda d: _finite(d) and 1e-6 <= d <= 1e6),
+                              lambda d: finite(d) and 1e-6 <= d <= 1e6),
         "exponent": Key(NUM, 0.0, "-", f">= 0 and <= {MAX_EXPONENT:g}", "power-law bath: g(ε) = |ε/D|^r, r = exponent",
-                        lambda r: _finite(r) and 0 <= r <= MAX_EXPONENT),
-        "table": Key(str, None, "path", "readable two-column text file (ε, g(ε))",
-                     "table bath: file with ε (units of D) and g(ε) >= 0; relative to the config file"),
+                        lambda r: finite(r) and 0 <= r <= MAX_EXPONENT),
+        "table": Key((str, dict), None, "path or data",
+                     "readable two-column text file (ε, g(ε)), or { energies = [...], values = [...] } with at "
+                     "least 5 points, energies strictly increasing around 0, values >= 0",
+                     "table bath: g(ε) >= 0 at energies ε (units of D), from a file (relative to the config "
+                     "file) or given as data", lambda v: isinstance(v, str) or _table_data(v), convert=_table_value),
     },
     "discretization": {
         "Lambda": Key(NUM, 3.0, "-", f">= {MIN_LAMBDA:g} and <= {MAX_LAMBDA:g}", "logarithmic discretization parameter Λ",
-                      lambda x: _finite(x) and MIN_LAMBDA <= x <= MAX_LAMBDA),
+                      lambda x: finite(x) and MIN_LAMBDA <= x <= MAX_LAMBDA),
         "twists": Key(int, 2, "-", f">= 1 and <= {MAX_TWISTS}",
                       "number of evenly spaced twists z = k/n, k = 1..n (z-averaging; "
                       "the adaptive scheme reproduces Γ(ε) only on average over twists, and one twist misses the "
@@ -167,15 +123,15 @@ SCHEMA: dict[str, dict[str, Key]] = {
                            "states kept per iteration, counting spin degeneracy", lambda n: 1 <= n <= MAX_KEPT_STATES),
         "energy_cutoff": Key(NUM, None, "ω_N", f"> 0 and <= {MAX_ENERGY_CUTOFF:g} (optional; memory estimated up front)",
                              "keep every state below this energy (units of ω_N) instead of a fixed count",
-                             lambda e: _finite(e) and 0 < e <= MAX_ENERGY_CUTOFF),
+                             lambda e: finite(e) and 0 < e <= MAX_ENERGY_CUTOFF),
         "lowest_temperature": Key(NUM, 1e-8, "D",
                                   f"> 0 and < half_bandwidth, at least {MIN_TEMPERATURE_RATIO:g} half_bandwidth",
                                   "lowest temperature wanted; sets the chain length",
-                                  lambda t: _finite(t) and t > 0),
+                                  lambda t: finite(t) and t > 0),
         "beta_bar": Key(NUM, 1.0, "-", f">= {MIN_BETA_BAR:g} and <= {MAX_BETA_BAR:g}",
                         "conventional thermodynamics: T_N = ω_N / beta_bar, the temperature evaluated at "
                         "iteration N; also sets the temperature of the discarded-weight diagnostic",
-                        lambda b: _finite(b) and MIN_BETA_BAR <= b <= MAX_BETA_BAR),
+                        lambda b: finite(b) and MIN_BETA_BAR <= b <= MAX_BETA_BAR),
         "thermodynamics": Key(str, "full-density-matrix", "-", " | ".join(THERMO_METHODS),
                               "how impurity thermodynamics is computed: from the complete basis of discarded "
                               "states of every shell at any temperature (no beta_bar), or conventionally at "
@@ -211,7 +167,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             "(Anderson and resonant-level models)",
                             lambda v: _number_list(v, 0.0, True), convert=_temperature_tuple),
         "broadening": Key(NUM, 0.6, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
-                          lambda b: _finite(b) and 0 < b <= 2),
+                          lambda b: finite(b) and 0 < b <= 2),
         "points_per_decade": Key(int, 25, "points", ">= 2 and <= 400",
                                  "frequency points per decade of |ω| of the stored spectra", lambda n: 2 <= n <= 400),
         "self_energy": Key(bool, False, "-", "true | false",
@@ -224,22 +180,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                         convert=_temperature_tuple),
         "memory_budget": Key(NUM, 1.0, "GB", "> 0 and <= 10000",
                              "eigenvectors kept in memory for the spectral pass; the rest goes to a temporary file",
-                             lambda m: _finite(m) and 0 < m <= 1e4),
+                             lambda m: finite(m) and 0 < m <= 1e4),
     },
     "output": {
         "file": Key(str, None, "path", "writable path ending in .h5 (default: <config name>.h5 in the current folder)",
                     "HDF5 result file"),
     },
-}
-
-#: The [impurity] keys each model uses besides ``model`` (the one place; a model registry can take it over).
-#: Any other [impurity] key given explicitly is an error naming the model and these keys.
-MODEL_KEYS: dict[str, tuple[str, ...]] = {
-    "kondo": ("exchange", "potential_scattering", "field"),
-    "spin-kondo": ("exchange", "potential_scattering", "spin", "field"),
-    "two-channel-kondo": ("exchange", "exchange_second_channel", "field"),
-    "anderson": ("level", "interaction", "hybridization", "field"),
-    "resonant-level": ("level", "hybridization", "field"),
 }
 
 #: The [bath] keys each shape uses besides ``shape``.
@@ -257,7 +203,7 @@ def used_keys(table: str, choice: str) -> tuple[str, ...]:
     Other tables use all their keys; the selecting key itself (``model``, ``shape``) is included.
     """
     if table == "impurity":
-        return ("model",) + MODEL_KEYS[choice]
+        return ("model",) + tuple(model_declaration(choice).parameters)
     if table == "bath":
         return ("shape",) + SHAPE_KEYS[choice]
     return tuple(SCHEMA[table])
@@ -281,63 +227,117 @@ def check_used_keys(given: dict, models, shapes, where: str = "") -> None:
     ConfigError
         Naming the key, the model (shape) and the keys it uses.
     """
-    for table, choices, label, declared in (("impurity", tuple(models), "model", MODEL_KEYS),
-                                            ("bath", tuple(shapes), "shape", SHAPE_KEYS)):
+    for table, choices in (("impurity", tuple(models)), ("bath", tuple(shapes))):
         used = set().union(*(used_keys(table, c) for c in choices))
         for key in given.get(table, ()):
             if key in SCHEMA[table] and key not in used:
-                names = " or ".join(f'"{c}"' for c in choices)
-                uses = "; ".join(f'"{c}" uses {", ".join(declared[c])}' for c in choices)
-                raise ConfigError(f"{where}{table}.{key}: not used by {label} {names}; remove it ({uses})")
+                raise ConfigError(where + unused_key_message(table, key, choices))
+
+
+def unused_key_message(table: str, key: str, choices) -> str:
+    """The one message for a key of [impurity] ([bath]) that the model (shape) does not use."""
+    label = "model" if table == "impurity" else "shape"
+    names = " or ".join(f'"{c}"' for c in choices)
+    uses = "; ".join(f'"{c}" uses {", ".join(used_keys(table, c)[1:])}' for c in choices)
+    return f"{table}.{key}: not used by {label} {names}; remove it ({uses})"
 
 
 SWEEP_NOTE = ("[sweep] maps a parameter name 'table.key' to a list of values, or to a table "
               "{ start, stop, points, spacing = \"linear\" | \"log\" }; [sweep] folder names the output folder")
 
 
-@dataclass(frozen=True)
-class ImpuritySpec:
-    """Physics of the impurity (units of D; see module docstring)."""
+def _validate_fields(obj, table: str) -> None:
+    """Check every field of a spec object against :data:`SCHEMA` (the same checks and messages as a
+    config file) and store the converted values; an invalid spec object cannot exist."""
+    for f in fields(obj):
+        key = SCHEMA[table].get(f.name)
+        if key is None:
+            continue
+        value = getattr(obj, f.name)
+        if value is None and key.default is None:
+            continue
+        object.__setattr__(obj, f.name, _check_value(table, f.name, key, _as_given(value, key)))
 
-    model: str
-    exchange: float
-    exchange_second_channel: float | None
-    potential_scattering: float
-    spin: float
-    level: float | None
-    interaction: float
-    hybridization: float
-    field: float
 
-    @property
+def _as_given(value, key: Key):
+    """A value as a config file or mapping would give it (tuples as lists, numpy scalars as numbers)."""
+    if hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        value = value.item()
+    if isinstance(value, tuple) and key.kind in ((list, dict), list):
+        return list(value)
+    if isinstance(value, tuple) and key.kind == (str, dict) and len(value) == 2:
+        return {"energies": list(value[0]), "values": list(value[1])}
+    return value
+
+
+def _impurity_post_init(self):
+    _validate_fields(self, "impurity")
+    decl = model_declaration(self.model)
+    for name, key in impurity_parameters().items():
+        if name not in decl.parameters and getattr(self, name) != key.default:
+            raise ConfigError(unused_key_message("impurity", name, (self.model,)))
+
+
+def _impurity_spec_class():
+    """ImpuritySpec: ``model`` and every parameter any registered model declares (defaults from the
+    declarations).  A parameter the chosen model does not use must keep its default."""
+    specs = [("model", str, field(default=SCHEMA["impurity"]["model"].default))]
+    specs += [(name, Any, field(default=key.default)) for name, key in impurity_parameters().items()]
+
     def U(self) -> float:
-        """Effective on-site repulsion (0 for the resonant level)."""
-        return 0.0 if self.model == "resonant-level" else self.interaction
+        """On-site repulsion U (units of D); 0 for a model without an ``interaction`` parameter."""
+        return self.interaction if "interaction" in model_declaration(self.model).parameters else 0.0
 
-    @property
     def epsilon_d(self) -> float:
-        """Effective level energy: ``level``, or −U/2 (the symmetric point) when not given."""
+        """Level energy ε_d (units of D): ``level``, or −U/2 (the symmetric point) when not given."""
         return -0.5 * self.U if self.level is None else self.level
+
+    def declaration(self):
+        """The model's :class:`~nrgsolve.models.ModelDeclaration`."""
+        return model_declaration(self.model)
+
+    namespace = {"U": property(U), "epsilon_d": property(epsilon_d), "declaration": property(declaration),
+                 "__post_init__": _impurity_post_init,
+                 "__doc__": "Physics of the impurity: the model and its parameters (units of D; ρJ, ρK "
+                            "dimensionless with ρ = 1/(2D), J > 0 antiferromagnetic; Γ = πρV²).  Validated on "
+                            "construction like a config file; keys the model does not use keep their defaults."}
+    cls = make_dataclass("ImpuritySpec", specs, namespace=namespace, frozen=True)
+    cls.__module__ = __name__          # so that specs pickle (worker processes) and print as nrgsolve.config
+    return cls
+
+
+ImpuritySpec = _impurity_spec_class()
+
+
+def _default(table: str, key: str):
+    return field(default=SCHEMA[table][key].default)
 
 
 @dataclass(frozen=True)
 class BathSpec:
-    """Physics of the conduction band."""
+    """Physics of the conduction band: shape g(ε), half-bandwidth D, power-law exponent r, table (a path,
+    or the pair (energies, values) with energies in units of D).  Validated on construction."""
 
-    shape: str
-    half_bandwidth: float
-    exponent: float
-    table: str | None
+    shape: str = _default("bath", "shape")
+    half_bandwidth: float = _default("bath", "half_bandwidth")
+    exponent: float = _default("bath", "exponent")
+    table: str | tuple | None = None
+
+    def __post_init__(self):
+        _validate_fields(self, "bath")
 
 
 @dataclass(frozen=True)
 class DiscretizationSpec:
-    """Numerical approximation: logarithmic discretization."""
+    """Numerical approximation: logarithmic discretization (Λ, twists, scheme).  Validated on construction."""
 
-    Lambda: float
-    twists: int
-    scheme: str
-    wilson_correction: bool
+    Lambda: float = _default("discretization", "Lambda")
+    twists: int = _default("discretization", "twists")
+    scheme: str = _default("discretization", "scheme")
+    wilson_correction: bool = _default("discretization", "wilson_correction")
+
+    def __post_init__(self):
+        _validate_fields(self, "discretization")
 
     @property
     def corrects_coupling(self) -> bool:
@@ -348,32 +348,40 @@ class DiscretizationSpec:
 
 @dataclass(frozen=True)
 class RunSettings:
-    """Numerical approximation: truncation, chain length, thermodynamics grid."""
+    """Numerical approximation: truncation, chain length, thermodynamics grid (temperatures in units of D).
+    Validated on construction."""
 
-    kept_states: int
-    energy_cutoff: float | None
-    lowest_temperature: float
-    beta_bar: float
-    thermodynamics: str
-    temperatures: tuple | None
-    error_estimate: bool
-    symmetry: str
-    workers: int
-    blas_threads: int
-    bath_reference: str
-    flow_levels: int
+    kept_states: int = _default("run", "kept_states")
+    energy_cutoff: float | None = None
+    lowest_temperature: float = _default("run", "lowest_temperature")
+    beta_bar: float = _default("run", "beta_bar")
+    thermodynamics: str = _default("run", "thermodynamics")
+    temperatures: tuple | None = None
+    error_estimate: bool = _default("run", "error_estimate")
+    symmetry: str = _default("run", "symmetry")
+    workers: int = _default("run", "workers")
+    blas_threads: int = _default("run", "blas_threads")
+    bath_reference: str = _default("run", "bath_reference")
+    flow_levels: int = _default("run", "flow_levels")
+
+    def __post_init__(self):
+        _validate_fields(self, "run")
 
 
 @dataclass(frozen=True)
 class SpectralSpec:
-    """Numerical request for spectral functions and conductance (temperatures in units of D)."""
+    """Numerical request for spectral functions and conductance (temperatures in units of D).
+    Validated on construction."""
 
-    temperatures: tuple | None
-    broadening: float
-    points_per_decade: int
-    self_energy: bool
-    conductance_temperatures: tuple | None
-    memory_budget: float
+    temperatures: tuple | None = None
+    broadening: float = _default("spectral", "broadening")
+    points_per_decade: int = _default("spectral", "points_per_decade")
+    self_energy: bool = _default("spectral", "self_energy")
+    conductance_temperatures: tuple | None = None
+    memory_budget: float = _default("spectral", "memory_budget")
+
+    def __post_init__(self):
+        _validate_fields(self, "spectral")
 
     @property
     def requested(self) -> bool:
@@ -383,7 +391,12 @@ class SpectralSpec:
 
 @dataclass(frozen=True)
 class OutputSpec:
-    file: str | None
+    """Where ``nrgsolve run`` writes the result (a path ending in .h5; None: next to the config)."""
+
+    file: str | None = None
+
+    def __post_init__(self):
+        _validate_fields(self, "output")
 
 
 @dataclass(frozen=True)
@@ -395,34 +408,125 @@ class SweepSpec:
     folder: str | None = None
 
 
+_TABLE_TYPES = {"impurity": ImpuritySpec, "bath": BathSpec, "discretization": DiscretizationSpec,
+                "run": RunSettings, "spectral": SpectralSpec, "output": OutputSpec}
+
+
 @dataclass(frozen=True)
 class RunSpec:
-    """A validated, frozen run specification: the only thing the numerics see."""
+    """A validated, frozen run specification: the only thing the numerics see.
 
-    impurity: ImpuritySpec
-    bath: BathSpec
-    discretization: DiscretizationSpec
-    run: RunSettings
-    output: OutputSpec
+    Built from a config file (:func:`load_config`), from a mapping with the same tables and keys
+    (:func:`spec_from_mapping`) or from the table objects directly; every way runs the same checks
+    and raises the same one-line :class:`~nrgsolve.errors.ConfigError`.  Tables left out take their
+    defaults; ``config_text`` is generated when not given.
+
+    Examples
+    --------
+    >>> spec = RunSpec(impurity=ImpuritySpec(model="kondo", exchange=0.2))
+    >>> spec.discretization.scheme
+    'adaptive'
+    """
+
+    impurity: ImpuritySpec = field(default_factory=ImpuritySpec)
+    bath: BathSpec = field(default_factory=BathSpec)
+    discretization: DiscretizationSpec = field(default_factory=DiscretizationSpec)
+    run: RunSettings = field(default_factory=RunSettings)
+    output: OutputSpec = field(default_factory=OutputSpec)
     sweep: SweepSpec = field(default_factory=SweepSpec)
     config_text: str = ""
     config_path: str = ""
     spectral: SpectralSpec | None = None
 
+    def __post_init__(self):
+        for table, kind in _TABLE_TYPES.items():
+            value = getattr(self, table)
+            if not isinstance(value, kind) and not (table == "spectral" and value is None):
+                raise ConfigError(f"{table}: expected a {kind.__name__}, got {type(value).__name__}")
+        _cross_checks(self)
+        if not self.config_text:
+            object.__setattr__(self, "config_text", spec_to_toml(self, output=True))
+
     def with_value(self, dotted: str, value) -> "RunSpec":
-        """Return a copy with one parameter ``table.key`` replaced and re-validated."""
+        """Return a copy with one parameter ``table.key`` replaced and re-validated (config text regenerated)."""
         table, key = dotted.split(".", 1)
+        if table not in SCHEMA or key not in SCHEMA[table]:
+            known = [f"{t}.{k}" for t in SCHEMA for k in SCHEMA[t]]
+            raise ConfigError(f"unknown parameter {dotted!r}{_suggest(dotted, known)}")
         raw = self.as_dict()
-        raw[table][key] = value
-        return _build(raw, self.config_text, self.config_path, self.sweep, check_cross=True)
+        raw.setdefault(table, {})[key] = value
+        spec = _build(raw, "", self.config_path, self.sweep)
+        return spec
 
     def as_dict(self) -> dict:
+        """``{table: {key: value}}`` of every table present (values as validated)."""
         out = {}
         for f in fields(self):
             if f.name in SCHEMA and getattr(self, f.name) is not None:
                 sub = getattr(self, f.name)
                 out[f.name] = {g.name: getattr(sub, g.name) for g in fields(sub)}
         return out
+
+
+def toml_value(value) -> str:
+    """One value as TOML text (numbers, booleans, strings, lists, inline tables)."""
+    if hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        value = value.item()
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "nan"
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, str):
+        out = "".join(c if (c >= " " and c not in '"\\\x7f') else f"\\u{ord(c):04x}" for c in value)
+        return f'"{out}"'
+    if isinstance(value, dict):
+        return "{ " + ", ".join(f"{k} = {toml_value(v)}" for k, v in value.items()) + " }"
+    if isinstance(value, (list, tuple)) or hasattr(value, "tolist"):
+        return "[" + ", ".join(toml_value(v) for v in list(value)) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} to TOML")
+
+
+def spec_to_toml(spec: RunSpec, header: str = "", output: bool = False) -> str:
+    """The resolved config of a spec as TOML text (no ``[sweep]`` table).
+
+    Every parameter is written out, so the text stays valid even if a
+    default changes later; left out are ``None`` values (meaning "use the
+    documented fallback"), the ``[output]`` table unless ``output`` (a sweep
+    names its own files) and the keys the model or bath shape does not use
+    (:func:`used_keys`; giving them is an error).  ``parse_config(spec_to_toml(spec))``
+    gives back the same parameters.
+
+    Parameters
+    ----------
+    spec : RunSpec
+    header : str
+        Comment lines put at the top (each line gets a ``# ``).
+    output : bool
+        Also write the ``[output]`` table.
+    """
+    lines = [f"# {h}" if h else "#" for h in header.splitlines()]
+    for table, values in spec.as_dict().items():
+        if table == "output" and not output:
+            continue
+        body = []
+        choice = values["model"] if table == "impurity" else values["shape"] if table == "bath" else None
+        used = used_keys(table, choice)
+        for key, value in values.items():
+            if value is None or key not in used:
+                continue
+            if table == "bath" and key == "table" and isinstance(value, tuple):
+                value = {"energies": value[0], "values": value[1]}
+            body.append(f"{key} = {toml_value(value)}")
+        if body:
+            lines.append(f"[{table}]")
+            lines.extend(body)
+    return "\n".join(lines) + "\n"
 
 
 def _suggest(word, options):
@@ -502,6 +606,61 @@ def parse_config(text: str, path: str = "<config>", stored: bool = False) -> Run
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    return _spec_from_raw(raw, text, path, stored)
+
+
+def spec_from_mapping(mapping, path: str = "<mapping>") -> RunSpec:
+    """Validate a mapping with the tables and keys of a config file (the same checks and messages).
+
+    Parameters
+    ----------
+    mapping : Mapping
+        ``{"impurity": {"model": "kondo", "exchange": 0.2}, "run": {...}, ...}``; numpy numbers
+        and arrays are accepted where the file takes numbers and lists.  ``bath.table`` may be a
+        path or ``{"energies": [...], "values": [...]}``.
+    path : str
+        Name used in messages; a relative ``bath.table`` path is resolved against the current folder.
+
+    Returns
+    -------
+    RunSpec
+        Its ``config_text`` is the mapping written as TOML.
+
+    Raises
+    ------
+    ConfigError
+    """
+    from collections.abc import Mapping
+    if not isinstance(mapping, Mapping):
+        raise ConfigError(f"{path}: expected a mapping of tables, got {type(mapping).__name__}")
+    raw = _plain(mapping)
+    try:
+        text = "".join(f"[{t}]\n" + "".join(f"{k} = {toml_value(v)}\n" for k, v in body.items())
+                       if isinstance(body, dict) else "" for t, body in raw.items())
+        tomllib.loads(text)
+    except (TypeError, tomllib.TOMLDecodeError):
+        text = ""
+    return _spec_from_raw(raw, text, path, stored=False)
+
+
+def _plain(value):
+    """Mappings to dicts, numpy scalars to numbers, arrays and tuples to lists (as a TOML parser gives)."""
+    from collections.abc import Mapping
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        return value.item()
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    if isinstance(value, tuple):
+        return [_plain(v) for v in value]
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    return value
+
+
+def _spec_from_raw(raw: dict, text: str, path: str, stored: bool) -> RunSpec:
+    """The checks shared by files and mappings: tables, keys, types, ranges, keys the model uses."""
     sweep_raw = raw.pop("sweep", None)
     for table in raw:
         if table not in SCHEMA:
@@ -525,7 +684,7 @@ def parse_config(text: str, path: str = "<config>", stored: bool = False) -> Run
     sweep = _parse_sweep(sweep_raw) if sweep_raw is not None else SweepSpec()
     if not stored:
         _check_used(raw, values, sweep)
-    return _build(values, text, path, sweep, check_cross=True)
+    return _build(values, text, path, sweep)
 
 
 def _check_used(raw, values, sweep):
@@ -594,7 +753,7 @@ def _range_values(name: str, spec: dict, integer: bool) -> list:
         raise ConfigError(f"sweep.{name}: a range needs start, stop and points; missing {missing[0]!r}")
     start, stop, points = spec["start"], spec["stop"], spec["points"]
     for k, v in (("start", start), ("stop", stop)):
-        if not _finite(v):
+        if not finite(v):
             raise ConfigError(f"sweep.{name}.{k}: got {show(v)}; allowed: a finite number")
         if integer and not isinstance(v, int):
             raise ConfigError(f"sweep.{name}.{k}: got {show(v)}; allowed: an integer ({name} takes integers)")
@@ -618,28 +777,32 @@ def _range_values(name: str, spec: dict, integer: bool) -> list:
     return vals
 
 
-def _build(values, text, path, sweep, check_cross) -> RunSpec:
+def _build(values, text, path, sweep) -> RunSpec:
+    """Spec objects from checked values; keys the model (bath shape) does not use take their defaults."""
     imp = dict(values["impurity"])
-    spec = RunSpec(
+    used = used_keys("impurity", imp["model"])
+    for key in imp:
+        if key not in used:
+            imp[key] = SCHEMA["impurity"][key].default
+    bath = dict(values["bath"])
+    if "table" not in used_keys("bath", bath["shape"]):
+        bath["table"] = None
+    spectral = values.get("spectral")
+    return RunSpec(
         impurity=ImpuritySpec(**imp),
-        bath=BathSpec(**values["bath"]),
+        bath=BathSpec(**bath),
         discretization=DiscretizationSpec(**values["discretization"]),
         run=RunSettings(**values["run"]),
         output=OutputSpec(**values["output"]),
-        spectral=SpectralSpec(**values["spectral"]) if "spectral" in values else None,
+        spectral=SpectralSpec(**spectral) if spectral is not None else None,
         sweep=sweep,
         config_text=text,
         config_path=path,
     )
-    if check_cross:
-        _cross_checks(spec)
-    return spec
 
 
 def _cross_checks(spec: RunSpec):
     imp, bath, run = spec.impurity, spec.bath, spec.run
-    if imp.model == "resonant-level" and imp.interaction != 0.0 and "interaction" in _given(spec, "impurity"):
-        raise ConfigError(f"impurity.interaction: got {imp.interaction}; allowed range: 0 for model \"resonant-level\"")
     if imp.field != 0.0 and run.symmetry == "su2":
         raise ConfigError("impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = \"abelian\" only")
     if bath.shape == "table" and not bath.table:
@@ -658,8 +821,9 @@ def _cross_checks(spec: RunSpec):
     sp = spec.spectral
     if sp is not None:
         asked = "temperatures" if sp.temperatures else "conductance_temperatures"
-        if sp.requested and imp.model not in ("anderson", "resonant-level"):
-            raise ConfigError(f"spectral.{asked}: expected impurity.model = \"anderson\" or \"resonant-level\" "
+        if sp.requested and not imp.declaration.impurity_level:
+            levels = " or ".join(f'"{m}"' for m in MODELS if model_declaration(m).impurity_level)
+            raise ConfigError(f"spectral.{asked}: expected impurity.model = {levels} "
                               f"(spectra are computed for the d level), got {imp.model!r}")
         for key in ("temperatures", "conductance_temperatures"):
             ts = getattr(sp, key)
@@ -683,13 +847,6 @@ def _check_scales(spec: RunSpec):
     if t < MIN_TEMPERATURE_RATIO * D:
         raise ConfigError(f"run.lowest_temperature: got {show(t)}; allowed range: "
                           f"{SCHEMA['run']['lowest_temperature'].allowed} (D = {D:g})")
-
-
-def _given(spec, table):
-    try:
-        return tomllib.loads(spec.config_text).get(table, {})
-    except tomllib.TOMLDecodeError:
-        return {}
 
 
 def load_config(path: str | Path) -> RunSpec:

@@ -3,8 +3,8 @@
 Reads only what :func:`nrgsolve.store.read_result` returns; computes no
 physics.  Besides the stored numbers it derives a few checks from them:
 truncation too aggressive (largest discarded weight above
-:data:`DISCARDED_WEIGHT_LIMIT`), lowest temperature not reached, Kondo
-temperature not reached, a config that no longer parses.
+:data:`nrgsolve.health.DISCARDED_WEIGHT_LIMIT`), lowest temperature not reached, Kondo
+temperature not reached, a config that no longer parses (:mod:`nrgsolve.health`, the same rules as a run).
 Temperatures are in units of the half-bandwidth D.
 """
 
@@ -14,17 +14,15 @@ import math
 
 import numpy as np
 
-from .config import parse_config
 from .errors import NrgInputError
-from .solve import DISCARDED_WEIGHT_LIMIT
-from .store import StoredResult, stored_fixed_points
+from .health import run_warnings
+from .result import Result
+from .store import stored_fixed_points
 from .uncertainty import HEADLINE, format_with_error
 
-__all__ = ["DISCARDED_WEIGHT_LIMIT", "LOW_TEMPERATURE_SLACK", "convergence", "derived_warnings", "describe",
+__all__ = ["convergence", "derived_warnings", "describe",
            "summary_lines", "method_lines"]
 
-#: The lowest temperature counts as reached when it is at most this factor above the requested one.
-LOW_TEMPERATURE_SLACK = 1.5
 
 
 def _number(v) -> float:
@@ -39,7 +37,7 @@ def _fmt(v, unit: str = "") -> str:
     return "not reached" if not math.isfinite(x) else f"{x:.6g}{unit}"
 
 
-def convergence(stored: StoredResult) -> dict:
+def convergence(stored: Result) -> dict:
     """Convergence numbers over all twists of a stored run.
 
     Returns
@@ -49,7 +47,7 @@ def convergence(stored: StoredResult) -> dict:
         ``kept_states_max`` (states, counting 2S+1), ``iterations`` (list,
         one per twist) and ``z`` (list of twists).
     """
-    diags = [t["diagnostics"] for t in stored.twists] or [stored.diagnostics]
+    diags = [t.diagnostics for t in stored.twists] or [stored.diagnostics]
     weights = np.concatenate([np.ravel(d.get("discarded_weight", [])) for d in diags])
     kept = np.concatenate([np.ravel(d.get("kept_states", [])) for d in diags])
     finite = weights[np.isfinite(weights)]
@@ -58,50 +56,33 @@ def convergence(stored: StoredResult) -> dict:
         "kept_states_min": int(kept.min()) if kept.size else 0,
         "kept_states_max": int(kept.max()) if kept.size else 0,
         "iterations": [len(np.ravel(d.get("iteration", []))) for d in diags],
-        "z": [t["z"] for t in stored.twists],
+        "z": [t.z for t in stored.twists],
     }
 
 
-def _spec(stored: StoredResult):
-    text = stored.attrs.get("config_text", "")
-    return parse_config(text, stored.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
+def _spec(stored: Result):
+    if stored.spec is None:
+        raise NrgInputError("the stored config does not parse with this version")
+    return stored.spec
 
 
-def derived_warnings(stored: StoredResult) -> list[str]:
-    """Warnings derived from the stored numbers (not the ones stored by the run).
+def derived_warnings(stored: Result) -> list[str]:
+    """Warnings derived again from the stored numbers by today's rules (:func:`nrgsolve.health.run_warnings`).
 
     Returns
     -------
     list of str
         One sentence per problem found; empty when nothing is suspicious.
     """
-    out = []
+    if stored.spec is None:
+        return ["the stored config does not parse with this version"]
     conv = convergence(stored)
-    w = conv["max_discarded_weight"]
-    if math.isfinite(w) and w > DISCARDED_WEIGHT_LIMIT:
-        out.append(f"truncation too aggressive: discarded weight up to {w:.2e} > {DISCARDED_WEIGHT_LIMIT:g} "
-                   f"(raise run.kept_states)")
-    try:
-        spec = _spec(stored)
-    except NrgInputError as exc:
-        out.append(f"the stored config does not parse with this version: {exc}")
-        spec = None
-    low = _number(stored.summary.get("lowest_temperature_reached"))
-    if spec is not None:
-        want = spec.run.lowest_temperature
-        if not math.isfinite(low):
-            out.append(f"lowest temperature not reached: no temperature stored (requested {want:.3g} D)")
-        elif low > LOW_TEMPERATURE_SLACK * want:
-            out.append(f"lowest temperature not reached: {low:.3g} D > requested {want:.3g} D")
-        kondo_like = spec.impurity.model in ("kondo", "spin-kondo", "anderson")
-        if kondo_like and not math.isfinite(_number(stored.summary.get("kondo_temperature_crossover"))):
-            tchi = np.asarray(stored.thermodynamics.get("T_chi_imp", []), dtype=float)
-            if tchi.size and np.all(tchi < 0.07):
-                out.append("Kondo temperature not found: T·χ is below 0.07 (g μ_B)²/k_B already at the highest "
-                           "temperature stored; the Kondo scale is at or above it")
-            else:
-                out.append("Kondo temperature not reached (T·χ never fell below 0.07 in (g μ_B)²/k_B)")
-    return out
+    onsite = np.asarray(stored.chain.get("onsite", np.zeros((0, 0))), dtype=float)
+    sites = [int(np.sum(np.isfinite(row))) for row in np.atleast_2d(onsite)]
+    z = [float(x) for x in np.ravel(stored.chain.get("z", []))]
+    return run_warnings(stored.spec, conv["max_discarded_weight"], stored.thermo.get("temperature", []),
+                        stored.thermo.get("T_chi", []), stored.summary.get("kondo_temperature_crossover"),
+                        sites if len(sites) == len(z) else None, z)
 
 
 def summary_lines(values: dict, errors: dict | None = None) -> list[str]:
@@ -148,7 +129,7 @@ def method_lines(attrs: dict) -> list[str]:
             "Wilson number: 0.4128 (file format 1: Wilson's numerical estimate)"]
 
 
-def _fixed_point_lines(stored: StoredResult) -> list[str]:
+def _fixed_point_lines(stored: Result) -> list[str]:
     """The fixed-point sequence and crossover temperatures (nothing for older files)."""
     fp = stored_fixed_points(stored)
     if fp is None:
@@ -161,12 +142,12 @@ def _fixed_point_lines(stored: StoredResult) -> list[str]:
     return lines
 
 
-def describe(stored: StoredResult) -> str:
+def describe(stored: Result) -> str:
     """Multi-line text: provenance, config, summary, convergence and warnings of a result file."""
-    a = stored.attrs
+    a = stored.provenance
     conv = convergence(stored)
     s = stored.summary
-    lines = [f"file: {stored.path}",
+    lines = [f"file: {stored.path or '(not saved)'}",
              "",
              "provenance",
              f"  nrgsolve version: {a.get('nrgsolve_version', '?')} (file format {a.get('format_version', '?')})",
@@ -205,7 +186,7 @@ def describe(stored: StoredResult) -> str:
     return "\n".join(lines) + "\n"
 
 
-def exact_comparison(stored: StoredResult) -> list[str]:
+def exact_comparison(stored: Result) -> list[str]:
     """Lines comparing a one-channel Kondo run with the exact Bethe-ansatz curves (empty otherwise).
 
     T_K is Wilson's from the run's own χ_imp(0) with w = 0.4107; the deviations are the largest
@@ -219,14 +200,14 @@ def exact_comparison(stored: StoredResult) -> list[str]:
             return []
     except NrgInputError:
         return []
-    th = stored.thermodynamics
-    if not all(k in th for k in ("temperature", "T_chi_imp", "S_imp", "C_imp")):
+    th = stored.thermo
+    if not all(k in th for k in ("temperature", "T_chi", "entropy", "heat")):
         return []
     head = ["", f"exact comparison (Bethe ansatz, one-channel Kondo, T/T_K in "
                 f"[{DEVIATION_WINDOW[0]:g}, {DEVIATION_WINDOW[1]:g}], T_K = 0.4107/(4 χ_imp(0)) of this run)"]
     T = np.asarray(th["temperature"], float)
-    chi0 = kondo_summary(T, np.asarray(th["T_chi_imp"], float), np.asarray(th["C_imp"], float)).chi_zero
-    dev = deviation_from_exact(T, th["T_chi_imp"], th["S_imp"], th["C_imp"], chi0) if chi0 else None
+    chi0 = kondo_summary(T, np.asarray(th["T_chi"], float), np.asarray(th["heat"], float)).chi_zero
+    dev = deviation_from_exact(T, th["T_chi"], th["entropy"], th["heat"], chi0) if chi0 else None
     if dev is None:
         return head + ["  not available: χ_imp(0) not reached or no temperature in the window"]
     lines = head + [f"  T_K = {dev['kondo_temperature']:.6g} D"]

@@ -1,7 +1,7 @@
-"""Figures drawn from stored result files only (never from live numerics).
+"""Figures drawn from results, just computed or read from files (the plots compute no physics).
 
-Every function takes :class:`~nrgsolve.store.StoredResult` objects (from
-:func:`nrgsolve.store.read_result`) and an optional ``ax``, and returns the
+Every function takes :class:`~nrgsolve.result.Result` objects (from
+:func:`nrgsolve.run` or :func:`nrgsolve.load`) or paths of result files and an optional ``ax``, and returns the
 matplotlib figure.  Nothing here computes physics or calls ``show()``;
 matplotlib is imported lazily and figures are made on the Agg canvas
 directly (no pyplot state), so plotting is safe in worker processes and
@@ -19,22 +19,42 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import parse_config
 from .errors import NrgInputError
-from .store import StoredResult, atomic_path, check_output_path
+from .result import Result, quantity as _quantity
+from .store import atomic_path, check_output_path
 
 __all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_flows", "plot_thermo",
            "differing_parameters", "run_labels", "save_figure", "plot_spectral", "plot_conductance"]
 
-#: quantity name -> (dataset in /thermodynamics, axis label with units)
-THERMO_QUANTITIES = {
-    "T_chi": ("T_chi_imp", r"$T\chi_\mathrm{imp}$  [$(g\mu_B)^2/k_B$]"),
-    "entropy": ("S_imp", r"$S_\mathrm{imp}$  [$k_B$]"),
-    "heat": ("C_imp", r"$C_\mathrm{imp}$  [$k_B$]"),
-    "magnetization": ("impurity_sz", r"$M = \langle S_z^\mathrm{imp} \rangle$  [$g\mu_B$]"),
-    "occupation": ("occupation", r"$\langle n_d \rangle$"),
-    "double_occupancy": ("double_occupancy", r"$\langle n_{d\uparrow} n_{d\downarrow} \rangle$"),
-}
+#: quantity a thermodynamics plot offers -> its name in ``Result.thermo`` (label and unit: nrgsolve.result.QUANTITIES)
+THERMO_QUANTITIES = {"T_chi": "T_chi", "entropy": "entropy", "heat": "heat", "magnetization": "impurity_sz",
+                     "occupation": "occupation", "double_occupancy": "double_occupancy"}
+
+
+def as_results(items, what: str = "results") -> list:
+    """Results from Results or paths of result files (read with :func:`nrgsolve.load`).
+
+    Raises
+    ------
+    NrgInputError
+        An item that is neither, or a path that is not a result file.
+    """
+    from .store import read_result
+    if isinstance(items, (Result, str, Path)):
+        items = [items]
+    out = []
+    for r in items:
+        if isinstance(r, Result):
+            out.append(r)
+        elif isinstance(r, (str, Path)):
+            out.append(read_result(r))
+        else:
+            raise NrgInputError(f"{what}: expected a Result or the path of a result file, got {type(r).__name__}")
+    return out
+
+
+def _name(r: Result) -> str:
+    return str(r.path) if r.path else r.label
 
 #: Short legend names of config parameters (others are shown as ``table.key``).
 PARAMETER_LABELS = {
@@ -74,12 +94,12 @@ def _level_label(q, twice_s, symmetry) -> str:
     return f"({int(q)}, {_spin_text(twice_s)})"
 
 
-def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None):
+def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
     """Energy-level flow: the lowest levels against iteration N, even and odd N apart.
 
     Parameters
     ----------
-    result : StoredResult
+    result : Result
         A stored run (its ``/flow`` group, twist z = 1).
     levels : int
         Number of lowest levels (multiplets for SU(2), states for the abelian
@@ -100,15 +120,16 @@ def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None
         If ``levels`` < 1 or the file holds no flow.
     """
     if not isinstance(levels, int) or levels < 1:
-        raise NrgInputError(f"--levels: got {levels!r}; allowed: an integer >= 1")
+        raise NrgInputError(f"levels: got {levels!r}; allowed: an integer >= 1")
+    result = as_results(result, "result")[0]
     flow = result.flow
     if "energy" not in flow or np.size(flow["energy"]) == 0:
-        raise NrgInputError(f"{result.path}: holds no energy-level flow (/flow/energy)")
+        raise NrgInputError(f"{_name(result)}: holds no energy-level flow (/flow/energy)")
     N = np.asarray(flow["iteration"], dtype=int)
     E = np.asarray(flow["energy"], dtype=float)[:, :levels]
     Q = np.asarray(flow["charge"])[:, :levels]
     S = np.asarray(flow["twice_spin"])[:, :levels]
-    symmetry = str(result.attrs.get("symmetry", "su2"))
+    symmetry = str(result.provenance.get("symmetry", "su2"))
     spin_name = "S" if symmetry == "su2" else "S_z"
     if ax is None:
         fig, axes = new_figure(1, 2, figsize=(9.0, 4.6), sharey=True)
@@ -150,8 +171,8 @@ def plot_flow(result: StoredResult, levels: int = 12, labelled: int = 8, ax=None
         a.grid(alpha=0.25)
     axes[0].set_ylabel(r"$E/\omega_N$ (from the ground state)")
     _shade_fixed_points(axes, result)
-    model = result.attrs.get("model", "")
-    fig.suptitle(f"{Path(result.path).stem}: level flow, {model}, labels ({'Q'}, ${spin_name}$)", fontsize=10)
+    model = result.provenance.get("model", "")
+    fig.suptitle(f"{result.label}: level flow, {model}, labels ({'Q'}, ${spin_name}$)", fontsize=10)
     return fig
 
 
@@ -161,7 +182,7 @@ _FIXED_POINT_COLORS = {"free-orbital": "C0", "valence-fluctuation": "C4", "local
                        "underscreened": "C5", "two-channel": "C3"}
 
 
-def _shade_fixed_points(axes, result: StoredResult):
+def _shade_fixed_points(axes, result: Result):
     """Shade and name the iteration range of every fixed point (files without them: nothing)."""
     from .store import stored_fixed_points
     fp = stored_fixed_points(result)
@@ -176,7 +197,7 @@ def _shade_fixed_points(axes, result: StoredResult):
                    ha="left", va="top", fontsize=7, color=color, clip_on=True)
 
 
-def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8):
+def plot_flows(results: list[Result], levels: int = 12, labelled: int = 8):
     """Level flows of several runs side by side (one column per run: even N above, odd N below).
 
     Returns
@@ -184,7 +205,8 @@ def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8)
     matplotlib.figure.Figure
     """
     if not results:
-        raise NrgInputError("plot flow: no result files given")
+        raise NrgInputError("results: no results given")
+    results = as_results(results)
     if len(results) == 1:
         return plot_flow(results[0], levels=levels, labelled=labelled)
     n = len(results)
@@ -192,7 +214,7 @@ def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8)
     names = run_labels(results)
     for k, r in enumerate(results):
         plot_flow(r, levels=levels, labelled=labelled, ax=(axes[0][k], axes[1][k]))
-        stem = Path(r.path).stem
+        stem = r.label
         title = stem if names[k] == stem else f"{stem} ({names[k]})"
         axes[0][k].set_title(f"{title}: even N", fontsize=9)
         axes[1][k].set_title("odd N", fontsize=9)
@@ -200,15 +222,11 @@ def plot_flows(results: list[StoredResult], levels: int = 12, labelled: int = 8)
     return fig
 
 
-def _parsed(result: StoredResult):
-    try:
-        return parse_config(result.attrs.get("config_text", ""),
-                            result.attrs.get("config_path", "<stored config>") or "<stored config>", stored=True)
-    except NrgInputError:
-        return None
+def _parsed(result: Result):
+    return result.spec
 
 
-def differing_parameters(results: list[StoredResult]) -> list[str]:
+def differing_parameters(results: list[Result]) -> list[str]:
     """The config parameters (``table.key``) whose values differ between the runs.
 
     Configs are read from each file's ``config_text`` attribute; settings that
@@ -239,7 +257,7 @@ def _value_text(v) -> str:
 MAX_LEGEND_PARAMETERS = 3
 
 
-def run_labels(results: list[StoredResult]) -> list[str]:
+def run_labels(results: list[Result]) -> list[str]:
     """Legend labels: the differing parameters and their values, else the file names.
 
     File names are used when no parameter differs, a config cannot be read,
@@ -247,7 +265,7 @@ def run_labels(results: list[StoredResult]) -> list[str]:
     """
     keys = differing_parameters(results)
     if not keys or len(keys) > MAX_LEGEND_PARAMETERS:
-        return [Path(r.path).stem for r in results]
+        return [r.label for r in results]
     specs = [_parsed(r).as_dict() for r in results]
     out = []
     for s in specs:
@@ -257,11 +275,11 @@ def run_labels(results: list[StoredResult]) -> list[str]:
             parts.append(f"{PARAMETER_LABELS.get(k, k)} = {_value_text(s[t][key])}")
         out.append(", ".join(parts))
     if len(set(out)) < len(out):                   # e.g. only ignored keys differ: add file names
-        out = [f"{o} ({Path(r.path).stem})" for o, r in zip(out, results)]
+        out = [f"{o} ({r.label})" for o, r in zip(out, results)]
     return out
 
 
-def kondo_temperature(result: StoredResult) -> float:
+def kondo_temperature(result: Result) -> float:
     """The stored crossover Kondo temperature T_K (D).
 
     Raises
@@ -271,18 +289,18 @@ def kondo_temperature(result: StoredResult) -> float:
     """
     tk = float(result.summary.get("kondo_temperature_crossover", math.nan))
     if not (math.isfinite(tk) and tk > 0):
-        raise NrgInputError(f"{result.path}: no Kondo temperature stored (summary kondo_temperature_crossover "
-                            f"not reached); plot without --scale kondo")
+        raise NrgInputError(f"{_name(result)}: no Kondo temperature stored (summary kondo_temperature_crossover "
+                            f"not reached); plot against T (scale = None)")
     return tk
 
 
-def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str | None = None,
+def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | None = None,
                 labels: list[str] | None = None, ax=None, exact: bool = False):
     """Impurity thermodynamics of several runs on one logarithmic temperature axis.
 
     Parameters
     ----------
-    results : list of StoredResult
+    results : list of Result
         Stored runs (their z-averaged ``/thermodynamics``).
     quantity : {"T_chi", "entropy", "heat", "magnetization", "occupation", "double_occupancy"}
         T·χ_imp in (g μ_B)²/k_B, S_imp in k_B, or C_imp in k_B.
@@ -309,17 +327,20 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
         or ``exact`` for a model, quantity or scale without an exact curve.
     """
     if quantity not in THERMO_QUANTITIES:
-        raise NrgInputError(f"--quantity: got {quantity!r}; allowed: {', '.join(THERMO_QUANTITIES)}")
+        raise NrgInputError(f"quantity: got {quantity!r}; allowed: {', '.join(THERMO_QUANTITIES)}")
     if scale not in (None, "kondo"):
-        raise NrgInputError(f"--scale: got {scale!r}; allowed: kondo")
+        raise NrgInputError(f"scale: got {scale!r}; allowed: None or \"kondo\"")
     if not results:
-        raise NrgInputError("plot thermo: give at least one result file")
-    name, ylabel = THERMO_QUANTITIES[quantity]
+        raise NrgInputError("results: give at least one result")
+    results = as_results(results)
+    name = THERMO_QUANTITIES[quantity]
+    ylabel = _quantity("thermo", name).label
     models = _exact_models(results, quantity, scale) if exact else []
     scales = [kondo_temperature(r) if scale == "kondo" else 1.0 for r in results]
     for r in results:
-        if name not in r.thermodynamics or "temperature" not in r.thermodynamics:
-            raise NrgInputError(f"{r.path}: holds no /thermodynamics/{name}")
+        if name not in r.thermo or "temperature" not in r.thermo:
+            raise NrgInputError(f"{_name(r)}: holds no {_quantity('thermo', name).meaning} "
+                                f"(/thermodynamics/{_quantity('thermo', name).dataset})")
     curves = _exact_curves(results, models, quantity, scales) if exact else []
     labels = run_labels(results) if labels is None else list(labels)
     if ax is None:
@@ -327,8 +348,8 @@ def plot_thermo(results: list[StoredResult], quantity: str = "T_chi", scale: str
     else:
         fig = ax.figure
     for r, tk, lab in zip(results, scales, labels):
-        T = np.asarray(r.thermodynamics["temperature"], dtype=float)
-        y = np.asarray(r.thermodynamics[name], dtype=float)
+        T = np.asarray(r.thermo["temperature"], dtype=float)
+        y = np.asarray(r.thermo[name], dtype=float)
         keep = np.isfinite(T) & np.isfinite(y) & (T > 0)
         ax.plot(T[keep] / tk, y[keep], "-", lw=1.4, label=lab)
     styles = ("--", ":", "-.", (0, (5, 1, 1, 1)), (0, (1, 3)))
@@ -356,11 +377,11 @@ def _exact_models(results, quantity, scale):
     for r in results:
         spec = _parsed(r)
         if spec is None:
-            raise NrgInputError(f"exact: {r.path}: the stored config does not parse; cannot tell its model")
+            raise NrgInputError(f"exact: {_name(r)}: the stored config does not parse; cannot tell its model")
         try:
             m = exact_model(spec)
         except NrgInputError as exc:
-            raise NrgInputError(f"exact: {r.path}: {exc}") from None
+            raise NrgInputError(f"exact: {_name(r)}: {exc}") from None
         if m not in models:
             models.append(m)
     return models
@@ -375,8 +396,8 @@ def _exact_curves(results, models, quantity, scales):
     from .observables.kondo_scale import CROSSOVER_VALUE
 
     field = _EXACT_FIELDS[quantity]
-    lo = min(float(np.nanmin(np.asarray(r.thermodynamics["temperature"]))) / tk for r, tk in zip(results, scales))
-    hi = max(float(np.nanmax(np.asarray(r.thermodynamics["temperature"]))) / tk for r, tk in zip(results, scales))
+    lo = min(float(np.nanmin(np.asarray(r.thermo["temperature"]))) / tk for r, tk in zip(results, scales))
+    hi = max(float(np.nanmax(np.asarray(r.thermo["temperature"]))) / tk for r, tk in zip(results, scales))
     out = []
     for k, spin in models:
         tc = bethe_ansatz.crossover_temperature(k, spin, CROSSOVER_VALUE)
@@ -419,7 +440,7 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
         raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
     targets = [png] + ([png.with_suffix(".pdf")] if pdf else [])
     for t in targets:
-        check_output_path(t, force, name="--output", suffix=".png")
+        check_output_path(t, force, name="png", suffix=".png", hint="pass force=True to replace it, or choose another name")
     managers = [atomic_path(t) for t in targets]
     temps = []
     try:
@@ -436,12 +457,12 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
     return targets
 
 
-def plot_spectral(result: StoredResult, improved: bool | None = None, xscale: str = "symlog", ax=None):
+def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "symlog", ax=None):
     """Impurity spectral function A(ω) of a stored run, one curve per stored temperature.
 
     Parameters
     ----------
-    result : StoredResult
+    result : Result
         A run with a ``/spectral`` group (config table [spectral]).
     improved : bool, optional
         Draw the self-energy improved estimate (default: when stored).
@@ -463,15 +484,16 @@ def plot_spectral(result: StoredResult, improved: bool | None = None, xscale: st
     ω in units of D, A in 1/D per spin; in the abelian mode the spin-up curve
     is solid and the spin-down curve dashed.
     """
+    result = as_results(result, "result")[0]
     sp = result.spectral
-    if not sp or "A" not in sp:
-        raise NrgInputError(f"{result.path}: holds no /spectral/A; run with a [spectral] table "
+    if sp is None or "A" not in sp:
+        raise NrgInputError(f"{_name(result)}: holds no /spectral/A; run with a [spectral] table "
                             f"(e.g. temperatures = [0.0]) in the config")
     if xscale not in ("symlog", "linear"):
-        raise NrgInputError(f"--xscale: got {xscale!r}; allowed: symlog, linear")
+        raise NrgInputError(f"xscale: got {xscale!r}; allowed: symlog, linear")
     use_improved = ("A_improved" in sp) if improved is None else bool(improved)
     if use_improved and "A_improved" not in sp:
-        raise NrgInputError(f"{result.path}: holds no improved estimate; run with spectral.self_energy = true")
+        raise NrgInputError(f"{_name(result)}: holds no improved estimate; run with spectral.self_energy = true")
     om = np.asarray(sp["omega"], dtype=float)
     temps = np.atleast_1d(np.asarray(sp["temperature"], dtype=float))
     A = np.asarray(sp["A_improved" if use_improved else "A"], dtype=float)
@@ -505,12 +527,12 @@ def plot_spectral(result: StoredResult, improved: bool | None = None, xscale: st
     return fig
 
 
-def plot_conductance(results: list[StoredResult], labels: list[str] | None = None, ax=None):
+def plot_conductance(results: list[Result], labels: list[str] | None = None, ax=None):
     """Linear conductance G(T)/(2e²/h) of one or more stored runs on a logarithmic T axis.
 
     Parameters
     ----------
-    results : list of StoredResult
+    results : list of Result
         Runs with a ``/transport`` group (spectral.conductance_temperatures).
     labels : list of str, optional
         Legend entries (default: :func:`run_labels`).
@@ -526,10 +548,11 @@ def plot_conductance(results: list[StoredResult], labels: list[str] | None = Non
         If no runs are given or a run holds no conductance.
     """
     if not results:
-        raise NrgInputError("plot conductance: give at least one result file")
+        raise NrgInputError("results: give at least one result")
+    results = as_results(results)
     for r in results:
-        if not r.transport or "conductance" not in r.transport:
-            raise NrgInputError(f"{r.path}: holds no /transport/conductance; run with "
+        if r.transport is None or "conductance" not in r.transport:
+            raise NrgInputError(f"{_name(r)}: holds no /transport/conductance; run with "
                                 f"spectral.conductance_temperatures in the config")
     labels = run_labels(results) if labels is None else list(labels)
     if ax is None:

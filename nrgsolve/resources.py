@@ -137,17 +137,6 @@ def kept_below_cutoff(cutoff: float, Lambda: float, channels: int = 1) -> float:
     return best
 
 
-def _channels(model: str) -> int:
-    return 2 if model == "two-channel-kondo" else 1
-
-
-def _impurity_states(imp) -> int:
-    """States of the initial block's impurity part (the local moment's degeneracy bounds the kept count)."""
-    if imp.model == "spin-kondo":
-        return int(round(2 * imp.spin)) + 1
-    return 4 if imp.model in ("anderson", "resonant-level") else 2
-
-
 def estimate(spec, bath=None) -> ResourceEstimate:
     """Estimate chain length, block sizes, peak memory and time of a run.
 
@@ -162,23 +151,23 @@ def estimate(spec, bath=None) -> ResourceEstimate:
     ResourceEstimate
     """
     from .discretize import twists as twist_values
-    from .solve import sites_needed
+    from .chain import sites_needed
 
     d, r, imp = spec.discretization, spec.run, spec.impurity
     D = bath.half_bandwidth if bath is not None else spec.bath.half_bandwidth
     sites = [sites_needed(r.lowest_temperature, d.Lambda, float(z), r.beta_bar, D, d.scheme)
              for z in twist_values(d.twists)]
-    channels = _channels(imp.model)
+    channels = imp.declaration.channels(imp)
     per_site = 4 ** channels
     if r.energy_cutoff is not None:
-        kept = 1.2 * _impurity_states(imp) * kept_below_cutoff(r.energy_cutoff, d.Lambda, channels)
+        kept = 1.2 * imp.declaration.impurity_states(imp) * kept_below_cutoff(r.energy_cutoff, d.Lambda, channels)
     else:
         kept = float(r.kept_states)
     largest_frac, sum_frac = _BLOCKS[(r.symmetry, channels)]
     runs = 2 if r.bath_reference == "nrg" else 1
     seconds, largest, peak_kept, peak_bytes, vectors = 0.0, 0.0, 0.0, 0.0, 0.0
     for n_sites in sites:
-        states = float(_impurity_states(imp))
+        states = float(imp.declaration.impurity_states(imp))
         twist_vectors = 0.0
         for i in range(n_sites):
             before = states * per_site                      # states before truncation

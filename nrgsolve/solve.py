@@ -6,10 +6,9 @@ impurity model, runs the engine kernel for each twist (in parallel
 processes), computes the observables and averages over the twists.
 It knows nothing about files or plots.
 
-Energy scale of iteration N for twist z (units of D):
-ω_N(z) = D (1 + 1/Λ)/2 · Λ^{−(N−1)/2} · Λ^{1−z},
-so that the last hopping in units of ω_N tends to 1 for the flat band and
-the temperatures T_N = ω_N/β̄ of different twists interleave.
+The energy unit ω_N of each iteration is defined beside the chain
+(:func:`nrgsolve.chain.energy_scale`); what a model needs is read from its
+declaration in the model registry (:mod:`nrgsolve.models`).
 """
 
 from __future__ import annotations
@@ -24,17 +23,18 @@ import numpy as np
 from .config import RunSpec, resolve_table_path
 from .bath import make_bath, read_table
 from .discretize import twists as twist_values
-from .chain import build_chain
+from .chain import build_chain, energy_scale, sites_needed
 from .engine import make_symmetry, run_chain, EngineSettings
-from .engine.iterate import Step
-from .models import kondo_block, two_channel_kondo_block, anderson_block, bare_chain_block
+from .engine.iterate import chain_steps
+from .models import bare_chain_block, ChainContact
 from .finite import check_finite_result
+from .health import run_warnings
 from .observables import (impurity_thermodynamics, average_twists, kondo_summary, flow_spectrum,
                           ThermoCurve, KondoSummary, FlowSpectrum)
 from .observables.thermo_fdm import impurity_thermodynamics_fdm, default_temperatures
 
-__all__ = ["DISCARDED_WEIGHT_LIMIT", "TwistResult", "RunResult", "energy_scale", "sites_needed", "solve_twist", "solve",
-           "bath_from_spec", "is_particle_hole_symmetric"]
+__all__ = ["TwistResult", "RunResult", "solve_twist", "solve", "bath_from_spec", "is_particle_hole_symmetric",
+           "model_contact"]
 
 
 @dataclass(frozen=True)
@@ -69,22 +69,9 @@ class RunResult:
     fixed_points: object = None      # (FixedPointFlow, FixedPointSummary) of the twist z = 1
 
 
-def energy_scale(N: int, Lambda: float, z: float = 1.0, half_bandwidth: float = 1.0, scheme: str = "wilson") -> float:
-    """ω_N(z) = D c_Λ · Λ^{−(N−1)/2} · Λ^{1−z} (units of D).
-
-    c_Λ is the large-n limit of t_n Λ^{n/2}/D for the flat band at z = 1:
-    (1+1/Λ)/2 for Wilson's scheme (Wilson 1975), (1−1/Λ)/ln Λ for the adaptive
-    scheme, so that the last hopping in units of ω_N tends to 1.
-    """
-    c = 0.5 * (1 + 1 / Lambda) if scheme == "wilson" else (1 - 1 / Lambda) / math.log(Lambda)
-    return half_bandwidth * c * Lambda ** (-(N - 1) / 2) * Lambda ** (1 - z)
-
-
 #: Full-density-matrix thermodynamics: the chain runs until ω_N is this factor below the lowest
 #: temperature asked for, so that the last shell's level spacing is far below every temperature.
 FDM_SCALE_MARGIN = 10.0
-#: ... and warns when a run ends less than this factor below it.
-FDM_REACH_WARNING = 3.0
 
 
 def run_temperatures(spec: RunSpec, half_bandwidth: float | None = None) -> np.ndarray:
@@ -105,54 +92,31 @@ def chain_sites(spec: RunSpec, z: float, half_bandwidth: float) -> int:
     return sites_needed(r.lowest_temperature, d.Lambda, z, r.beta_bar, half_bandwidth, d.scheme)
 
 
-def sites_needed(lowest_temperature: float, Lambda: float, z: float, beta_bar: float,
-                 half_bandwidth: float = 1.0, scheme: str = "wilson") -> int:
-    """Chain sites 0..N+1, N the first iteration whose T_N(z) = ω_N(z)/β̄ ≤ lowest_temperature.
-
-    One iteration more than N, so that the even-N and the odd-N points (averaged separately) both
-    reach the lowest temperature.
-    """
-    w0 = energy_scale(1, Lambda, z, half_bandwidth, scheme) / beta_bar
-    N = max(1, 1 + math.ceil(2 * math.log(w0 / lowest_temperature) / math.log(Lambda) - 1e-9))
-    return N + 2
-
-
 def bath_from_spec(spec: RunSpec):
     """The Bath object of a spec (reads the table file if there is one)."""
     b = spec.bath
+    if b.shape == "table" and isinstance(b.table, tuple):
+        return make_bath("table", table=b.table)
     if b.shape == "table":
         return read_table(resolve_table_path(spec))
     return make_bath(b.shape, half_bandwidth=b.half_bandwidth, exponent=b.exponent)
 
 
 def is_particle_hole_symmetric(spec: RunSpec, bath) -> bool:
-    """True when the model is particle-hole symmetric (symmetric bath, ε_d = −U/2 or K = 0, no field)."""
+    """True when the model is particle-hole symmetric: symmetric bath, no field, and the model's own
+    test (ε_d = −U/2; no potential scattering)."""
     imp = spec.impurity
     if not bath.is_particle_hole_symmetric() or imp.field != 0.0:
         return False
-    if imp.model in ("anderson", "resonant-level"):
-        return abs(imp.epsilon_d + 0.5 * imp.U) < 1e-15
-    return imp.potential_scattering == 0.0
+    return bool(imp.declaration.particle_hole_symmetric(imp))
 
 
-def _model_block(spec: RunSpec, chain, bath):
-    imp = spec.impurity
+def model_contact(chain, bath) -> ChainContact:
+    """What the model needs of a chain: ε_0, V_0²/Γ, the coupling correction A_Λ (or 1) and ρ = 1/(2D)."""
     D = bath.half_bandwidth
     plain = bath.integral(-D, D) / math.pi          # (1/π)∫ g dε without correction
-    corr = chain.coupling_sq / plain                # A_Λ when the Wilson correction is on, else 1
-    rho = 1.0 / (2.0 * D)
-    if imp.model in ("kondo", "spin-kondo"):
-        twice = 1 if imp.model == "kondo" else int(round(2 * imp.spin))
-        blk = kondo_block(imp.exchange / rho * corr, imp.potential_scattering / rho * corr, twice, imp.field,
-                          float(chain.onsite[0]))
-        return blk, 1
-    if imp.model == "two-channel-kondo":
-        j2 = imp.exchange if imp.exchange_second_channel is None else imp.exchange_second_channel
-        blk = two_channel_kondo_block(imp.exchange / rho * corr, j2 / rho * corr, 1, imp.field,
-                                      float(chain.onsite[0]))
-        return blk, 2
-    v0 = math.sqrt(imp.hybridization * chain.coupling_sq)
-    return anderson_block(imp.epsilon_d, imp.U, v0, imp.field), 1
+    return ChainContact(onsite0=float(chain.onsite[0]), coupling_sq=float(chain.coupling_sq),
+                        correction=float(chain.coupling_sq) / plain, density=1.0 / (2.0 * D))
 
 
 def solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResult:
@@ -186,17 +150,18 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     n_sites = chain_sites(spec, z, D)
     chain = build_chain(bath, d.Lambda, z, n_sites, scheme=d.scheme,
                         wilson_correction=d.corrects_coupling)
-    block, n_channels = _model_block(spec, chain, bath)
+    decl = spec.impurity.declaration
+    block = decl.build(spec.impurity, model_contact(chain, bath))
+    n_channels = decl.channels(spec.impurity)
     sym = make_symmetry(r.symmetry, n_channels)
     initial = sym.from_explicit(block)
     first = block.first_site
-    steps = []
-    for n in range(first, n_sites):
-        if n == 0:
-            hop = tuple(block.first_hopping[k] for k in range(n_channels))
-        else:
-            hop = (float(chain.hopping[n - 1]),) * n_channels
-        steps.append(Step(n, (float(chain.onsite[n]),) * n_channels, hop, energy_scale(n, d.Lambda, z, D, d.scheme)))
+
+    def scale(n):
+        return energy_scale(n, d.Lambda, z, D, d.scheme)
+
+    first_hop = [block.first_hopping[k] for k in range(n_channels)] if first == 0 else None
+    steps = chain_steps(chain.onsite, chain.hopping, scale, first, n_sites, n_channels, first_hop)
     settings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                               flow_levels=r.flow_levels,
                               particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
@@ -205,28 +170,25 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
         from .observables.spectral import spectral_run, impurity_operators
         sp = spec.spectral
         corr = (("G", "d", "d"), ("F", "dn", "d")) if sp.self_energy else (("G", "d", "d"),)
-        res, spectral = spectral_run(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym,
+        res, spectral = spectral_run(initial, first - 1, scale(first - 1), sym,
                                      steps, settings, impurity_operators(sym, block, sp.self_energy),
                                      _spectral_temperatures(sp), corr, memory_budget=sp.memory_budget * 1e9,
                                      progress=progress)
     else:
-        res = run_chain(initial, first - 1, energy_scale(first - 1, d.Lambda, z, D, d.scheme), sym, steps,
-                        settings, progress)
+        res = run_chain(initial, first - 1, scale(first - 1), sym, steps, settings, progress)
     bath_records = None
     diag = res.diag_seconds
     if r.bath_reference == "nrg":
         bare = sym.from_explicit(bare_chain_block(float(chain.onsite[0]), n_channels))
-        bsteps = [st for st in steps if st.index >= 1]
-        if first == 0:   # Anderson: the bath run starts at site 1 with the chain's own hopping t_0
-            bsteps = [Step(n, (float(chain.onsite[n]),) * n_channels, (float(chain.hopping[n - 1]),) * n_channels,
-                           energy_scale(n, d.Lambda, z, D, d.scheme)) for n in range(1, n_sites)]
+        # the bath run starts at site 1 with the chain's own hopping t_0
+        bsteps = chain_steps(chain.onsite, chain.hopping, scale, 1, n_sites, n_channels)
         # full density matrix: the bath run discards above the impurity run's truncation energy of each
         # iteration, so that both runs drop the same part of the spectrum and the method's errors cancel
         cutoffs = {rec.index: rec.truncation_energy for rec in res.records} if fdm else None
         bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                                    flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric(),
                                    cutoffs=cutoffs)
-        bres = run_chain(bare, 0, energy_scale(0, d.Lambda, z, D, d.scheme), sym, bsteps, bsettings, None)
+        bres = run_chain(bare, 0, scale(0), sym, bsteps, bsettings, None)
         bath_records = bres.records
         diag += bres.diag_seconds
     if fdm:
@@ -245,7 +207,7 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
 
 def _spectral_wanted(spec: RunSpec) -> bool:
     sp = getattr(spec, "spectral", None)
-    return sp is not None and sp.requested and spec.impurity.model in ("anderson", "resonant-level")
+    return sp is not None and sp.requested and spec.impurity.declaration.impurity_level
 
 
 def _spectral_temperatures(sp) -> tuple:
@@ -293,7 +255,7 @@ def _solve_twist_reporting(spec, z):
 def n_iterations(spec: RunSpec, bath=None) -> int:
     """Total iterations of a run over all twists, with its checking runs (for progress bars)."""
     bath = bath_from_spec(spec) if bath is None else bath
-    first = 0 if spec.impurity.model in ("anderson", "resonant-level") else 1
+    first = 0 if spec.impurity.declaration.impurity_level else 1
     specs = [spec]
     if spec.run.error_estimate:
         from .uncertainty import variant_specs
@@ -350,7 +312,9 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
     thermo = average_twists([t.thermo for t in results])
     check_finite_result(thermo, [t.thermo for t in results], zs)      # NaN/inf never reach a result
     summary = kondo_summary(thermo.temperature, thermo.T_chi, thermo.heat)
-    warnings = _warnings(spec, results, thermo, summary)
+    warnings = run_warnings(spec, max(float(np.max(t.flow.discarded_weight)) for t in results), thermo.temperature,
+                            thermo.T_chi, summary.kondo_temperature_crossover,
+                            [len(t.onsite) for t in results], [t.z for t in results])
     spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
     try:
         fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
@@ -383,43 +347,9 @@ def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
     rho0 = float(bath.shape_function(0.0)) / (A * bath.integral(-D, D))
     labelled = identify_fixed_points(
         fl.iteration, fl.energy, fl.charge, fl.twice_spin, twist.onsite, twist.hopping, scales,
-        charged=imp.model in ("anderson", "resonant-level"),
-        twice_impurity_spin=int(round(2 * imp.spin)) if imp.model == "spin-kondo" else 1,
-        n_channels=2 if imp.model == "two-channel-kondo" else 1, abelian=spec.run.symmetry == "abelian",
+        charged=imp.declaration.impurity_level, twice_impurity_spin=imp.declaration.twice_impurity_spin(imp),
+        n_channels=imp.declaration.channels(imp), abelian=spec.run.symmetry == "abelian",
         rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath),
         channel_charge=fl.channel_charge)
     temps = np.array([energy_scale(int(n), d.Lambda, twist.z, D, d.scheme) for n in fl.iteration]) / spec.run.beta_bar
     return labelled, summarize_fixed_points(labelled, temps)
-
-
-#: Largest discarded thermal weight per iteration (fraction of the Boltzmann weight at T_N carried by the
-#: discarded states) before a run warns.  Measured on configs/kondo.toml (Λ = 2.5, 2 twists): 600 kept
-#: states give weights up to 9e-3 and change T·χ_imp by 5e-5, S_imp by 1.1e-3 and T_K by 1e-4 relative to
-#: 1500 kept states; weights above 1e-2 mean errors of order 1e-3 or more.
-DISCARDED_WEIGHT_LIMIT = 1e-2
-
-
-def _warnings(spec, results, thermo, summary) -> list:
-    out = []
-    worst = max(float(np.max(t.flow.discarded_weight)) for t in results)
-    if worst > DISCARDED_WEIGHT_LIMIT:
-        out.append(f"truncation may be too aggressive: discarded thermal weight up to {worst:.1e} "
-                   f"(increase run.kept_states or run.beta_bar)")
-    low = float(thermo.temperature[0])
-    if spec.run.thermodynamics == "full-density-matrix":
-        last = max(energy_scale(len(t.onsite) - 1, spec.discretization.Lambda, t.z, spec.bath.half_bandwidth,
-                                spec.discretization.scheme) for t in results)
-        if last > low / FDM_REACH_WARNING:
-            out.append(f"the chain ends at ω_N = {last:.3g} D, not far enough below the lowest temperature "
-                       f"{low:.3g} D (want ω_N ≤ T/{FDM_REACH_WARNING:g}): the lowest temperatures see the "
-                       f"finite chain")
-    elif low > 1.5 * spec.run.lowest_temperature:
-        out.append(f"lowest temperature reached {low:.3g} D is above the requested {spec.run.lowest_temperature:.3g} D")
-    if summary.kondo_temperature_crossover is None and spec.impurity.model != "two-channel-kondo":
-        if np.all(np.asarray(thermo.T_chi) < 0.07):
-            out.append("Kondo temperature not found: T·χ_imp is below 0.07 already at the highest temperature "
-                       f"computed ({float(thermo.temperature[-1]):.3g} D); the Kondo scale is at or above it")
-        else:
-            out.append("Kondo temperature not reached (T·χ_imp never falls below 0.07: unscreened, or run not low "
-                       "enough)")
-    return out

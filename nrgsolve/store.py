@@ -49,7 +49,6 @@ import os
 import platform
 import subprocess
 import tempfile
-from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -57,19 +56,31 @@ import numpy as np
 
 from .errors import NrgInputError
 from .observables.kondo_scale import WILSON_NUMBER
-from .uncertainty import headline_values
+from .result import GROUP_PATHS, Group, Result, TwistData, dataset_name, python_name, unit_of
 
-__all__ = ["FORMAT_VERSION", "write_result", "read_result", "StoredResult", "check_output_path", "check_writable",
-           "atomic_path", "stored_fixed_points"]
+__all__ = ["FORMAT_VERSION", "write_result", "read_result", "check_output_path", "check_writable",
+           "atomic_path", "stored_fixed_points", "provenance"]
 
 #: 2: root attributes ``discretization_scheme``, ``thermodynamics_method``, ``wilson_number``; ``/summary``
 #: gains ``chi_zero``, ``gamma_zero``, ``T_chi_lowest``, ``entropy_lowest`` and ``<name>_error``;
 #: ``/thermodynamics/free_energy``.  Files of version 1 are still read.
 FORMAT_VERSION = 2
 
-THERMO_NAMES = {"T_chi": ("T_chi_imp", "(g mu_B)^2/k_B"), "entropy": ("S_imp", "k_B"), "heat": ("C_imp", "k_B")}
-EXTRA_UNITS = {"free_energy": "D", "occupation": "electrons", "double_occupancy": "1", "impurity_sz": "hbar",
-               "total_sz": "hbar", "spin_correlation": "hbar^2"}
+
+
+def provenance(spec) -> dict:
+    """Root attributes of a new result: versions, creation time, config text, the methods used."""
+    import h5py
+    import scipy
+    return {"format_version": FORMAT_VERSION, "nrgsolve_version": _version(), "config_text": spec.config_text,
+            "config_path": spec.config_path,
+            "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+            "python_version": platform.python_version(), "numpy_version": np.__version__,
+            "scipy_version": scipy.__version__, "h5py_version": h5py.__version__, "git_commit": _git_commit(),
+            "symmetry": spec.run.symmetry, "model": spec.impurity.model,
+            "discretization_scheme": spec.discretization.scheme,
+            "wilson_correction": bool(spec.discretization.corrects_coupling),
+            "thermodynamics_method": spec.run.thermodynamics, "wilson_number": float(WILSON_NUMBER)}
 
 
 def _version():
@@ -90,8 +101,12 @@ def _git_commit():
         return ""
 
 
-def check_output_path(path: str | Path, force: bool, name: str = "output", suffix: str = ".h5",
-                      create_folder: bool = True) -> Path:
+#: What a library caller is told to do about an existing file (the command line names its own flags).
+OVERWRITE_HINT = "pass overwrite=True to replace it, or choose another path"
+
+
+def check_output_path(path: str | Path, force: bool, name: str = "path", suffix: str = ".h5",
+                      create_folder: bool = True, hint: str = OVERWRITE_HINT) -> Path:
     """Refuse an existing output file unless ``force``, or a file that cannot be created; create the folder.
 
     Checked before any work: the name is not empty, not a folder, not too long for
@@ -122,7 +137,7 @@ def check_output_path(path: str | Path, force: bool, name: str = "output", suffi
     if p.is_dir():
         raise NrgInputError(f"{name}: {p} is a folder; give a file name ending in {suffix}")
     if (p.exists() or p.is_symlink()) and not force:
-        raise NrgInputError(f"{name}: {p} already exists; use --force to overwrite or choose another --output")
+        raise NrgInputError(f"{name}: {p} already exists; {hint}")
     if create_folder:
         try:
             p.parent.mkdir(parents=True, exist_ok=True)
@@ -205,8 +220,9 @@ class atomic_path:
     one succeeds.
     """
 
-    def __init__(self, target, exclusive: bool = False, name: str = "output"):
+    def __init__(self, target, exclusive: bool = False, name: str = "path", hint: str = OVERWRITE_HINT):
         self.target = Path(target)
+        self.hint = hint
         self.exclusive = exclusive
         self.name = name
 
@@ -234,187 +250,100 @@ class atomic_path:
                 os.replace(self.tmp, self.target)
         except FileExistsError:
             raise NrgInputError(f"{self.name}: {self.target} already exists (written by another run meanwhile); "
-                                f"use --force to overwrite or choose another --output") from None
+                                f"{self.hint}") from None
         finally:
             self.tmp.unlink(missing_ok=True)
         return False
 
 
-def _ds(group, name, data, units):
-    d = group.create_dataset(name, data=np.asarray(data))
-    d.attrs["units"] = units
-    return d
+def _encode(v):
+    """A value as HDF5 takes it: str arrays as UTF-8 byte strings."""
+    a = np.asarray(v)
+    if a.dtype.kind == "U":
+        return np.array([x.encode() for x in a.ravel()], dtype="S").reshape(a.shape) if a.size else \
+            np.array([b""], dtype="S")
+    return v
 
 
-def _pad(rows, fill=np.nan):
-    n = max(len(r) for r in rows)
-    out = np.full((len(rows), n), fill, dtype=float)
-    for i, r in enumerate(rows):
-        out[i, :len(r)] = r
-    return out
+def _decode(v):
+    """A value read from HDF5 as a Result holds it: byte strings to str, numpy scalars to Python ones."""
+    if isinstance(v, bytes):
+        return v.decode()
+    if isinstance(v, np.ndarray):
+        if v.dtype.kind == "S" or v.dtype.kind == "O":
+            return np.array([x.decode() if isinstance(x, bytes) else str(x) for x in v.ravel()]).reshape(v.shape)
+        return v
+    if isinstance(v, np.bool_):
+        return bool(v)
+    if isinstance(v, np.integer):
+        return int(v)
+    if isinstance(v, np.floating):
+        return float(v)
+    return v
 
 
-def _write_flow(g, flow):
-    f = g.create_group("flow")
-    _ds(f, "iteration", flow.iteration, "1")
-    _ds(f, "energy", flow.energy, "omega_N")
-    _ds(f, "charge", flow.charge, "electrons from half filling")
-    _ds(f, "twice_spin", flow.twice_spin, "2S (su2) or 2S_z (abelian)")
-    _ds(f, "degeneracy", flow.degeneracy, "states")
-    if getattr(flow, "channel_charge", None) is not None:
-        _ds(f, "channel_charge", flow.channel_charge, "electrons from half filling, per channel")
-    d = g.create_group("diagnostics")
-    _ds(d, "iteration", flow.iteration, "1")
-    _ds(d, "kept_states", flow.kept_states, "states")
-    _ds(d, "truncation_energy", flow.truncation_energy, "omega_N")
-    _ds(d, "discarded_weight", flow.discarded_weight, "1")
-    _ds(d, "block_dimensions", flow.block_dimensions, "states")
+def _write_group(parent, path: str, group, kind: str):
+    g = parent.create_group(path)
+    for k, v in group.attrs.items():
+        g.attrs[k] = _encode(v)
+    for name, data in group.items():
+        d = g.create_dataset(dataset_name(kind, name), data=_encode(data))
+        d.attrs["units"] = unit_of(kind, name)
+    return g
 
 
-def _write_thermo(g, curve):
-    t = g.create_group("thermodynamics")
-    _ds(t, "temperature", curve.temperature, "D")
-    for attr, (name, units) in THERMO_NAMES.items():
-        _ds(t, name, getattr(curve, attr), units)
-    for name, values in curve.extra.items():
-        _ds(t, name, values, EXTRA_UNITS.get(name, "1"))
+def _read_group(g, kind: str) -> Group:
+    data = {python_name(kind, k): _decode(g[k][()]) for k in g if hasattr(g[k], "shape")}
+    return Group(kind, data, {k: _decode(v) for k, v in g.attrs.items()})
 
 
-def write_result(result, path: str | Path, force: bool = False) -> Path:
-    """Write a :class:`~nrgsolve.solve.RunResult` to ``path`` atomically.
+def write_result(result, path: str | Path, overwrite: bool = False, force: bool | None = None,
+                 name: str = "path", hint: str = OVERWRITE_HINT) -> Path:
+    """Write a :class:`~nrgsolve.result.Result` to ``path`` atomically.
+
+    Parameters
+    ----------
+    result : Result
+    path : str or Path
+    overwrite : bool
+        Replace an existing file (``force`` is the older name of this argument).
 
     Raises
     ------
     NrgInputError
-        If the file exists and ``force`` is False.
+        If the file exists and ``overwrite`` is False, or it cannot be written.
     """
     import h5py
-    import scipy
 
-    target = check_output_path(path, force)
-    spec = result.spec
-    with atomic_path(target, exclusive=not force) as tmp:
+    overwrite = bool(overwrite or force)
+    target = check_output_path(path, overwrite, name=name, hint=hint)
+    with atomic_path(target, exclusive=not overwrite, name=name, hint=hint) as tmp:
         with h5py.File(tmp, "w") as h:
-            a = h.attrs
-            a["format_version"] = FORMAT_VERSION
-            a["nrgsolve_version"] = _version()
-            a["config_text"] = spec.config_text
-            a["config_path"] = spec.config_path
-            a["created_utc"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
-            a["python_version"] = platform.python_version()
-            a["numpy_version"] = np.__version__
-            a["scipy_version"] = scipy.__version__
-            a["h5py_version"] = h5py.__version__
-            a["git_commit"] = _git_commit()
-            a["symmetry"] = spec.run.symmetry
-            a["model"] = spec.impurity.model
-            a["discretization_scheme"] = spec.discretization.scheme
-            a["wilson_correction"] = bool(spec.discretization.corrects_coupling)
-            a["thermodynamics_method"] = spec.run.thermodynamics
-            a["wilson_number"] = WILSON_NUMBER
-            tw = result.twists
-            c = h.create_group("chain")
-            _ds(c, "z", [t.z for t in tw], "1")
-            _ds(c, "onsite", _pad([t.onsite for t in tw]), "D")
-            _ds(c, "hopping", _pad([t.hopping for t in tw]), "D")
-            _ds(c, "coupling_sq", [t.coupling_sq for t in tw], "D")
-            main = int(np.argmax([t.z for t in tw]))
-            _write_flow(h, tw[main].flow)
-            _write_thermo(h, result.thermo)
+            for k, v in result.provenance.items():
+                h.attrs[k] = _encode(v)
+            for kind, where in GROUP_PATHS.items():
+                group = getattr(result, kind)
+                if group is not None:
+                    _write_group(h, where, group, kind)
             g = h.create_group("twists")
-            for k, t in enumerate(tw):
+            for k, t in enumerate(result.twists):
                 gk = g.create_group(str(k))
                 gk.attrs["z"] = t.z
-                gk.attrs["diag_seconds"] = t.diag_seconds
-                gk.attrs["total_seconds"] = t.total_seconds
-                _write_flow(gk, t.flow)
-                _write_thermo(gk, t.thermo)
+                for name, v in t.attrs.items():
+                    gk.attrs[name] = _encode(v)
+                _write_group(gk, "flow", t.flow, "flow")
+                _write_group(gk, "diagnostics", t.diagnostics, "diagnostics")
+                _write_group(gk, GROUP_PATHS["thermo"], t.thermo, "thermo")
             s = h.create_group("summary")
-            values = headline_values(result)
-            values["lowest_temperature_reached"] = result.summary.lowest_temperature_reached
-            for name, v in values.items():
-                s.attrs[name] = np.nan if v is None else float(v)
-            for name, err in result.uncertainties.items():
-                s.attrs[f"{name}_error"] = np.nan if err is None else float(err)
-            if result.checks:
-                s.attrs["error_checks"] = "; ".join(result.checks)
-            s.attrs["wall_seconds"] = float(result.wall_seconds)
+            for name, v in result.summary.items():
+                s.attrs[name] = _encode(v)
             s.attrs["warnings"] = np.array([w.encode() for w in result.warnings] or [b""], dtype="S")
-            _write_spectral(h, result)
-            _write_fixed_points(h, result)
+    object.__setattr__(result, "path", str(target))
     return target
 
 
-def _write_fixed_points(h, result):
-    """/flow/fixed_point, /flow/fixed_point_error, /flow/phase_shift and the /summary attributes."""
-    fixed = getattr(result, "fixed_points", None)
-    if fixed is None:
-        return
-    labelled, summ = fixed
-    f = h["flow"]
-    _ds(f, "fixed_point", np.array([x.encode() for x in labelled.label], dtype="S"), "label")
-    _ds(f, "fixed_point_error", labelled.error, "omega_N")
-    _ds(f, "phase_shift", labelled.phase_shift, "pi")
-    a = h["summary"].attrs
-    a["fixed_points"] = np.array([lab.encode() for lab, _, _ in summ.sequence] or [b""], dtype="S")
-    a["fixed_point_first_iteration"] = np.array([x for _, x, _ in summ.sequence] or [-1], dtype=int)
-    a["fixed_point_last_iteration"] = np.array([x for _, _, x in summ.sequence] or [-1], dtype=int)
-    a["crossover_temperatures"] = np.array(summ.crossover_temperatures or [np.nan], dtype=float)
-    a["final_fixed_point"] = summ.final
-    a["phase_shift"] = float(summ.phase_shift)
-    a["screening_channel"] = int(summ.screening_channel)
-    a["fixed_point_text"] = summ.text()
-
-
-def _spin_first(a):
-    """(n_T, n_comp, n_ω) -> (n_T, n_ω) for one component, else (n_comp, n_T, n_ω)."""
-    a = np.asarray(a)
-    return a[:, 0] if a.shape[1] == 1 else np.moveaxis(a, 1, 0)
-
-
-def _write_spectral(h, result):
-    sp, tr = getattr(result, "spectral", None), getattr(result, "transport", None)
-    if sp is not None:
-        g = h.create_group("spectral")
-        g.attrs["broadening"] = float(sp.broadening)
-        g.attrs["components"] = ", ".join(sp.components)
-        _ds(g, "omega", sp.omega, "D")
-        _ds(g, "temperature", sp.temperatures, "D")
-        _ds(g, "A", _spin_first(sp.spectral), "1/D")
-        _ds(g, "occupation", sp.occupation, "electrons")
-        if sp.improved is not None:
-            _ds(g, "A_improved", _spin_first(sp.improved), "1/D")
-            _ds(g, "self_energy_real", _spin_first(sp.self_energy.real), "D")
-            _ds(g, "self_energy_imag", _spin_first(sp.self_energy.imag), "D")
-    if tr is not None:
-        g = h.create_group("transport")
-        _ds(g, "temperature", tr.temperature, "D")
-        _ds(g, "conductance", tr.conductance, "2e^2/h")
-
-
-@dataclass
-class StoredResult:
-    """What a result file holds, read back into plain arrays (see module docstring)."""
-
-    path: str
-    attrs: dict
-    chain: dict
-    flow: dict
-    diagnostics: dict
-    thermodynamics: dict
-    twists: list
-    summary: dict
-    warnings: list = field(default_factory=list)
-    spectral: dict = field(default_factory=dict)     # /spectral datasets (empty when absent)
-    transport: dict = field(default_factory=dict)    # /transport datasets (empty when absent)
-
-
-def _group_dict(g):
-    return {k: g[k][()] for k in g if hasattr(g[k], "shape")}
-
-
-def read_result(path: str | Path) -> StoredResult:
-    """Read a result file written by :func:`write_result`.
+def read_result(path: str | Path) -> Result:
+    """Read a result file written by :func:`write_result` (or by an older version) as a :class:`Result`.
 
     Raises
     ------
@@ -432,7 +361,7 @@ def read_result(path: str | Path) -> StoredResult:
         with h5py.File(p, "r") as h:
             if "format_version" not in h.attrs:
                 raise NrgInputError(f"{p}: not an nrgsolve result file (no format_version attribute)")
-            attrs = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in h.attrs.items()}
+            attrs = {k: _decode(v) for k, v in h.attrs.items()}
             twists = []
             names = list(h["twists"]) if "twists" in h else []
             odd = [k for k in names if not k.isdigit()]
@@ -440,30 +369,40 @@ def read_result(path: str | Path) -> StoredResult:
                 raise NrgInputError(f"{p}: not a valid result file (unexpected member /twists/{odd[0][:60]})")
             for k in sorted(names, key=int):
                 gk = h["twists"][k]
-                twists.append({"z": float(gk.attrs["z"]), "flow": _group_dict(gk["flow"]),
-                               "diagnostics": _group_dict(gk["diagnostics"]),
-                               "thermodynamics": _group_dict(gk["thermodynamics"])})
-            summary = {k: v for k, v in h["summary"].attrs.items() if k != "warnings"}
-            warns = [w.decode() for w in h["summary"].attrs.get("warnings", []) if w]
-            spectral = _group_dict(h["spectral"]) if "spectral" in h else {}
-            if "spectral" in h:
-                spectral.update({k: (v.decode() if isinstance(v, bytes) else v) for k, v in h["spectral"].attrs.items()})
-            transport = _group_dict(h["transport"]) if "transport" in h else {}
-            return StoredResult(str(p), attrs, _group_dict(h["chain"]), _group_dict(h["flow"]),
-                                _group_dict(h["diagnostics"]), _group_dict(h["thermodynamics"]),
-                                twists, summary, warns, spectral=spectral, transport=transport)
+                extra = {a: _decode(v) for a, v in gk.attrs.items() if a != "z"}
+                twists.append(TwistData(float(gk.attrs["z"]), _read_group(gk["flow"], "flow"),
+                                        _read_group(gk["diagnostics"], "diagnostics"),
+                                        _read_group(gk[GROUP_PATHS["thermo"]], "thermo"), extra))
+            summary = {k: _decode(v) for k, v in h["summary"].attrs.items() if k != "warnings"}
+            warns = tuple(w.decode() for w in h["summary"].attrs.get("warnings", []) if w)
+            groups = {kind: _read_group(h[where], kind) if where in h else None for kind, where in GROUP_PATHS.items()}
     except NrgInputError:
         raise
     except (OSError, KeyError, ValueError, TypeError, AttributeError, IndexError, UnicodeDecodeError) as exc:
         msg = " ".join(str(exc).split())[:200] or exc.__class__.__name__
         raise NrgInputError(f"{p}: cannot read result file ({msg})") from None
+    for kind in ("chain", "flow", "diagnostics", "thermo"):
+        if groups[kind] is None:
+            raise NrgInputError(f"{p}: cannot read result file (no /{GROUP_PATHS[kind]} group)")
+    return Result(spec=stored_spec(attrs), summary=summary, twists=tuple(twists), warnings=warns,
+                  provenance=attrs, path=str(p), **groups)
+
+
+def stored_spec(attrs: dict):
+    """The RunSpec of a stored config text, or None when it does not parse with this version."""
+    from .config import parse_config
+    try:
+        return parse_config(str(attrs.get("config_text", "")), str(attrs.get("config_path") or "<stored config>"),
+                            stored=True)
+    except NrgInputError:
+        return None
 
 
 def _text(v) -> str:
     return v.decode() if isinstance(v, bytes) else str(v)
 
 
-def stored_fixed_points(stored: StoredResult) -> dict | None:
+def stored_fixed_points(stored: Result) -> dict | None:
     """The fixed-point data of a stored run, or None for files written before they existed.
 
     Returns

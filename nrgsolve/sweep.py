@@ -35,9 +35,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from .config import RunSpec, parse_config, used_keys
+from .config import RunSpec, parse_config, spec_to_toml, toml_value as _toml_value
 from .errors import NrgInputError
 from .solve import bath_from_spec, solve
+from .result import result_from_run
 from .store import atomic_path, read_result, write_result
 
 __all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "FIXED_POINT_COLUMNS", "sweep_points", "spec_to_toml",
@@ -126,58 +127,6 @@ def default_folder(spec: RunSpec, cwd: str | Path | None = None) -> Path:
     return base / f"{stem}_sweep"
 
 
-def _toml_value(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        if math.isnan(value):
-            return "nan"
-        if math.isinf(value):
-            return "inf" if value > 0 else "-inf"
-        return repr(value)
-    if isinstance(value, str):
-        out = "".join(c if (c >= " " and c not in '"\\\x7f') else f"\\u{ord(c):04x}" for c in value)
-        return f'"{out}"'
-    if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {type(value).__name__} to TOML")
-
-
-def spec_to_toml(spec: RunSpec, header: str = "") -> str:
-    """The resolved config of a spec as TOML text (no ``[sweep]`` table).
-
-    Every parameter is written out, so the text stays valid even if a
-    default changes later; left out are ``None`` values (meaning "use the
-    documented fallback"), the ``[output]`` table (a sweep names its own
-    files) and the keys the model or bath shape does not use
-    (:func:`nrgsolve.config.used_keys`; giving them is an error).
-    ``parse_config(spec_to_toml(spec))`` gives back the same parameters.
-
-    Parameters
-    ----------
-    spec : RunSpec
-    header : str
-        Comment lines put at the top (each line gets a ``# ``).
-    """
-    lines = [f"# {h}" if h else "#" for h in header.splitlines()]
-    for table, values in spec.as_dict().items():
-        if table == "output":
-            continue
-        body = []
-        choice = values["model"] if table == "impurity" else values["shape"] if table == "bath" else None
-        used = used_keys(table, choice)
-        for key, value in values.items():
-            if value is None or key not in used:
-                continue
-            body.append(f"{key} = {_toml_value(value)}")
-        if body:
-            lines.append(f"[{table}]")
-            lines.extend(body)
-    return "\n".join(lines) + "\n"
-
-
 def sweep_points(spec: RunSpec) -> list[SweepPoint]:
     """Every point of the sweep (outer product, last parameter fastest), validated.
 
@@ -217,7 +166,7 @@ def _comparable(spec: RunSpec) -> dict:
 
 def _stored_matches(stored, point: SweepPoint) -> bool:
     try:
-        got = parse_config(stored.attrs.get("config_text", ""), point.spec.config_path, stored=True)
+        got = parse_config(str(stored.provenance.get("config_text", "")), point.spec.config_path, stored=True)
     except NrgInputError:
         return False
     return _comparable(got) == _comparable(point.spec)
@@ -239,8 +188,8 @@ def remove_stale_parts(folder: Path) -> list[Path]:
 def _run_point(config_text: str, config_path: str, target: str) -> str:
     """Worker: run one point (twists serially) and write its file atomically; returns the path."""
     spec = parse_config(config_text, config_path)
-    result = solve(spec, workers=1)
-    return str(write_result(result, target, force=True))
+    result = result_from_run(solve(spec, workers=1))
+    return str(write_result(result, target, overwrite=True))
 
 
 def _run_local(tasks, jobs: int, done: Callable[[int], None]):

@@ -8,7 +8,7 @@ import pytest
 from scipy.linalg import eigh_tridiagonal
 
 from nrgsolve.bath import make_bath
-from nrgsolve.chain import (Chain, _tridiagonalize_fixed, build_chain, chain_length, intervals_for_chain,
+from nrgsolve.chain import (Chain, _tridiagonalize_fixed, build_chain, energy_scale, sites_needed, intervals_for_chain,
                             tridiagonalize)
 from nrgsolve.discretize import Star, discretize
 from nrgsolve.errors import NrgInputError, NrgNumericalError
@@ -235,30 +235,30 @@ def test_breakdown_for_gapped_bath():
         build_chain(bath, 2.0, 1.0, 30)
 
 
-def test_chain_length_matches_definition():
-    """n_sites = N+1 for the smallest N ≥ 1 with T_N = D(1+Λ⁻¹)/2 Λ^{-(N-1)/2}/β̄ ≤ T
-    (project convention, DESIGN), by direct search."""
-    def brute(t, lam, bb, d):
+@pytest.mark.parametrize("scheme", ["wilson", "adaptive"])
+def test_sites_needed_matches_definition(scheme):
+    """n_sites = N + 2 for the smallest N ≥ 1 with T_N = ω_N/β̄ ≤ T, ω_N = D c_Λ Λ^{-(N-1)/2} Λ^{1-z}
+    (project convention, DESIGN.md), by direct search."""
+    def brute(t, lam, z, bb, d):
+        c = (1 + 1 / lam) / 2 if scheme == "wilson" else (1 - 1 / lam) / math.log(lam)
         n = 1
-        while d * (1 + 1 / lam) / 2 * lam ** (-(n - 1) / 2) / bb > t:
+        while d * c * lam ** (-(n - 1) / 2) * lam ** (1 - z) / bb > t:
             n += 1
-        return n + 1
+        return n + 2
 
-    for t, lam, bb, d in [(1e-10, 2.0, 0.75, 1.0), (1e-6, 3.0, 0.5, 1.0), (0.3, 2.5, 1.0, 2.0),
-                          (10.0, 2.0, 0.75, 1.0), (1e-14, 1.7, 1.2, 1.0)]:
-        assert chain_length(t, lam, bb, d) == brute(t, lam, bb, d)
-    t5 = (1 + 1 / 2) / 2 * 2 ** (-(5 - 1) / 2) / 0.75
-    assert chain_length(t5, 2.0, 0.75) == 6
+    for t, lam, z, bb, d in [(1e-10, 2.0, 1.0, 0.75, 1.0), (1e-6, 3.0, 0.5, 0.5, 1.0), (0.3, 2.5, 1.0, 1.0, 2.0),
+                             (1e-14, 1.7, 0.25, 1.2, 1.0)]:
+        assert sites_needed(t, lam, z, bb, d, scheme) == brute(t, lam, z, bb, d)
 
 
-@pytest.mark.parametrize("args,key", [((0.0, 2.0, 0.75), "run.lowest_temperature"),
-                                      ((-1e-3, 2.0, 0.75), "run.lowest_temperature"),
-                                      ((1e-3, 1.0, 0.75), "discretization.Lambda"),
-                                      ((1e-3, 2.0, 0.0), "run.beta_bar")])
-def test_chain_length_rejects_bad_input(args, key):
-    """Bad chain_length input raises NrgInputError naming the key."""
-    with pytest.raises(NrgInputError, match=key):
-        chain_length(*args)
+@pytest.mark.parametrize("scheme", ["wilson", "adaptive"])
+def test_energy_scale_is_the_limit_of_the_hoppings(scheme):
+    """t_{N−1}/ω_N → 1 along the flat-band chain at z = 1: ω_N is defined so that the hopping that adds
+    site N is one in its units (Wilson 1975 for his scheme; Žitko & Pruschke 2009 for the adaptive one)."""
+    lam = 2.5
+    chain = build_chain(make_bath("flat"), lam, 1.0, 40, scheme=scheme)
+    ratio = [chain.hopping[n - 1] / energy_scale(n, lam, 1.0, 1.0, scheme) for n in (30, 35, 38)]
+    assert ratio == pytest.approx([1.0] * 3, rel=1e-9)
 
 
 def test_tridiagonalize_rejects_bad_input():

@@ -9,7 +9,7 @@ import h5py
 import numpy as np
 import pytest
 
-from nrgsolve.solve import DISCARDED_WEIGHT_LIMIT
+from nrgsolve.health import DISCARDED_WEIGHT_LIMIT
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 from cli_helpers import assert_one_line_error, listing, run_cli, tiny_kondo
@@ -278,7 +278,7 @@ def test_hard_truncation_is_flagged_by_run_and_inspect(tmp_path):
     (tmp_path / "hard.toml").write_text(tiny_kondo(0.2).replace("kept_states = ", "kept_states = 30 #"))
     proc = run_cli("run", "hard.toml", "--output", "hard.h5", cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
-    assert "truncation may be too aggressive" in proc.stdout
+    assert "truncation too aggressive" in proc.stdout
     with h5py.File(tmp_path / "hard.h5") as h:
         assert float(np.max(h["diagnostics/discarded_weight"][()])) > DISCARDED_WEIGHT_LIMIT
     out = run_cli("inspect", tmp_path / "hard.h5", cwd=tmp_path).stdout

@@ -28,7 +28,7 @@ import scipy.linalg as sla
 from ..errors import NrgNumericalError, NrgInputError
 from .symmetry import BlockSet
 
-__all__ = ["EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain"]
+__all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain"]
 
 
 @dataclass(frozen=True)
@@ -87,6 +87,38 @@ class Step:
     onsite: tuple
     hopping: tuple
     scale: float
+
+
+def chain_steps(onsite, hopping, scale, first: int, stop: int, channels: int = 1, first_hopping=None) -> list:
+    """The steps that add chain sites ``first`` .. ``stop − 1`` (the one helper that builds them).
+
+    Parameters
+    ----------
+    onsite, hopping : sequence of float
+        ε_n and t_n of the chain (units of D); channels share them unless an entry is itself a sequence
+        with one value per channel.
+    scale : callable
+        n → ω_n, the energy unit of iteration n (units of D).
+    first, stop : int
+        First site to add and one past the last.
+    channels : int
+        Conduction channels.
+    first_hopping : sequence of float, optional
+        The hopping onto site ``first`` per channel (e.g. V_0 from the impurity level onto site 0);
+        default ``hopping[first − 1]``.
+
+    Returns
+    -------
+    list of Step
+    """
+    def per_channel(x):
+        return tuple(float(v) for v in x) if np.ndim(x) else (float(x),) * channels
+
+    steps = []
+    for n in range(first, stop):
+        hop = per_channel(first_hopping) if (n == first and first_hopping is not None) else per_channel(hopping[n - 1])
+        steps.append(Step(n, per_channel(onsite[n]), hop, float(scale(n))))
+    return steps
 
 
 @dataclass

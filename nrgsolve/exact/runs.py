@@ -40,24 +40,10 @@ def exact_model(spec):
         When the run's model has no exact curve (the message says why).
     """
     imp, bath = spec.impurity, spec.bath
-    model = imp.model
-    if model == "kondo":
-        k, spin = 1, 0.5
-    elif model == "spin-kondo":
-        k, spin = 1, float(imp.spin)
-    elif model == "two-channel-kondo":
-        second = imp.exchange if imp.exchange_second_channel is None else imp.exchange_second_channel
-        if second != imp.exchange:
-            raise NrgInputError(f"no exact curve for model \"two-channel-kondo\" with unequal couplings "
-                                f"(exchange = {imp.exchange:g}, exchange_second_channel = {second:g})")
-        k, spin = 2, 0.5
-    else:
-        raise NrgInputError(f"no exact curve for model \"{model}\"; exact curves exist for kondo, "
-                            f"spin-kondo and two-channel-kondo")
-    if imp.exchange <= 0:
-        raise NrgInputError(f"no exact curve for a ferromagnetic or zero coupling (exchange = {imp.exchange:g})")
-    if imp.field != 0:
-        raise NrgInputError(f"no exact curve in a field (field = {imp.field:g}); the exact curves are for zero field")
+    found = imp.declaration.exact_curve(imp)
+    if isinstance(found, str):
+        raise NrgInputError(found)
+    k, spin = found
     if bath.shape == "table" or (bath.shape == "power-law" and bath.exponent != 0):
         raise NrgInputError(f"no exact curve for bath shape \"{bath.shape}\"; the exact curves need a finite "
                             f"density of states at the Fermi level (flat or semicircular)")

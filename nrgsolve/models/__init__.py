@@ -1,10 +1,13 @@
-"""Impurity models, each written once as an explicit small block.
+"""Impurity models: a registry of declarations, one file per model.
 
-Every model returns an :class:`~nrgsolve.engine.ExplicitBlock`: the
-impurity (and, for Kondo models, chain site 0) as explicit matrices, the
-creation operators of the orbital that couples to the next chain site, and
-the impurity observables.  The symmetry layer resolves the block into good
-quantum numbers, so one definition serves both the su2 and the abelian mode.
+Every model file defines ``MODEL``, a :class:`~nrgsolve.models.registry.ModelDeclaration`
+(name, parameters with units and ranges, channels, operators, particle-hole
+test, exact curve, block builder); :data:`MODELS` finds them all.  A block is
+an :class:`~nrgsolve.engine.ExplicitBlock`: the impurity (and, for Kondo
+models, chain site 0) as explicit matrices, the creation operators of the
+orbital that couples to the next chain site, and the impurity observables.
+The symmetry layer resolves the block into good quantum numbers, so one
+definition serves every symmetry mode.
 
 Conventions (all energies in units of the half-bandwidth D):
 
@@ -17,7 +20,10 @@ Conventions (all energies in units of the half-bandwidth D):
 * h is the Zeeman energy on the impurity only (h > 0 favours spin up).
 """
 
-from .kondo import kondo_block, two_channel_kondo_block, bare_chain_block
+from .kondo import kondo_block, two_channel_kondo_block
 from .anderson import anderson_block
+from .bare_chain import bare_chain_block
+from .registry import MODELS, ModelDeclaration, ChainContact, model, model_names, impurity_parameters
 
-__all__ = ["kondo_block", "two_channel_kondo_block", "bare_chain_block", "anderson_block"]
+__all__ = ["kondo_block", "two_channel_kondo_block", "bare_chain_block", "anderson_block", "MODELS",
+           "ModelDeclaration", "ChainContact", "model", "model_names", "impurity_parameters"]

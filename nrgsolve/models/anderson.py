@@ -1,10 +1,16 @@
-"""The single-impurity Anderson model (and the resonant level, U = 0)."""
+"""The single-impurity Anderson model.
+
+H_imp = ε_d n_d + U n_d↑ n_d↓ − h S_z + V_0 Σ_σ (d†_σ f_0σ + h.c.), Γ = πρV² (energies in units of D);
+ε_d defaults to −U/2, the particle-hole symmetric point.
+"""
 
 from __future__ import annotations
 
 from ..engine.fock import FockSpace, ExplicitBlock
+from .parameters import LEVEL, INTERACTION, HYBRIDIZATION, FIELD
+from .registry import ModelDeclaration, ChainContact
 
-__all__ = ["anderson_block"]
+__all__ = ["anderson_block", "MODEL"]
 
 
 def anderson_block(level: float, interaction: float, coupling: float, field: float = 0.0) -> ExplicitBlock:
@@ -37,3 +43,21 @@ def anderson_block(level: float, interaction: float, coupling: float, field: flo
                          scalar_ops={"occupation": nu + nd, "double_occupancy": nu @ nd},
                          first_site=0, first_hopping={0: coupling},
                          sz_ops={"impurity_sz": 0.5 * (nu - nd)})
+
+
+def _build(imp, contact: ChainContact) -> ExplicitBlock:
+    return anderson_block(imp.epsilon_d, imp.U, (imp.hybridization * contact.coupling_sq) ** 0.5, imp.field)
+
+
+MODEL = ModelDeclaration(
+    name="anderson",
+    summary="an interacting level (ε_d, U) hybridized with one channel (Γ = πρV²)",
+    parameters={"level": LEVEL, "interaction": INTERACTION, "hybridization": HYBRIDIZATION, "field": FIELD},
+    build=_build,
+    impurity_level=True,
+    averages=("occupation", "double_occupancy"),
+    particle_hole_symmetric=lambda imp: abs(imp.epsilon_d + 0.5 * imp.U) < 1e-15,
+    exact_curve=lambda imp: "no exact curve for model \"anderson\"; exact curves exist for kondo, "
+                            "spin-kondo and two-channel-kondo",
+    order=1,
+)

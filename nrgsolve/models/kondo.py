@@ -1,11 +1,18 @@
-"""Kondo models: a local spin S exchange-coupled to chain site 0 of one or two channels."""
+"""The Kondo model (spin ½, one channel) and the block builders of every Kondo model.
+
+H_imp = J S·s_0 + K (n_0 − 1) − h S_z, J > 0 antiferromagnetic, energies in units of D;
+the config gives ρJ and ρK with ρ = 1/(2D).  The spin-S and two-channel variants are declared
+in :mod:`.spin_kondo` and :mod:`.two_channel_kondo` and build their blocks here.
+"""
 
 from __future__ import annotations
 
 
 from ..engine.fock import FockSpace, ExplicitBlock
+from .parameters import EXCHANGE, POTENTIAL_SCATTERING, FIELD
+from .registry import ModelDeclaration, ChainContact
 
-__all__ = ["kondo_block", "two_channel_kondo_block", "bare_chain_block"]
+__all__ = ["kondo_block", "two_channel_kondo_block", "MODEL"]
 
 
 def _spin_dot(space: FockSpace, up: int):
@@ -67,13 +74,29 @@ def two_channel_kondo_block(exchange: float, exchange2: float, twice_spin: int =
                          scalar_ops={}, first_site=1, sz_ops={"impurity_sz": sp.local_sz})
 
 
-def bare_chain_block(onsite0: float = 0.0, n_channels: int = 1) -> ExplicitBlock:
-    """Chain site 0 alone (no impurity), for the bath-only reference run.
+def build_kondo(imp, contact: ChainContact, twice_spin: int = 1) -> ExplicitBlock:
+    """Block of a one-channel Kondo model from its parameters (ρJ, ρK → J, K with ρ and A_Λ)."""
+    scale = contact.correction / contact.density
+    return kondo_block(imp.exchange * scale, imp.potential_scattering * scale, twice_spin, imp.field,
+                       contact.onsite0)
 
-    .. math:: H_0 = ε_0 \\sum_{kσ} n_{0kσ}
-    """
-    modes = [(k, s) for k in range(n_channels) for s in (1, -1)]
-    sp = FockSpace(modes, 0, n_channels)
-    n0 = sum(sp.number(j) for j in range(len(modes)))
-    last = {k: (sp.creator(2 * k), sp.creator(2 * k + 1)) for k in range(n_channels)}
-    return ExplicitBlock(space=sp, hamiltonian=onsite0 * n0, last_site=last, first_site=1)
+
+def kondo_exact_curve(imp, spin: float = 0.5):
+    """The one-channel spin-S Bethe-ansatz curve, or why it does not apply."""
+    if imp.exchange <= 0:
+        return f"no exact curve for a ferromagnetic or zero coupling (exchange = {imp.exchange:g})"
+    if imp.field != 0:
+        return f"no exact curve in a field (field = {imp.field:g}); the exact curves are for zero field"
+    return 1, spin
+
+
+MODEL = ModelDeclaration(
+    name="kondo",
+    summary="spin-½ local moment exchange-coupled to one conduction channel, J S·s_0 + K (n_0 − 1) − h S_z",
+    parameters={"exchange": EXCHANGE, "potential_scattering": POTENTIAL_SCATTERING, "field": FIELD},
+    build=build_kondo,
+    averages=("spin_correlation",),
+    particle_hole_symmetric=lambda imp: imp.potential_scattering == 0.0,
+    exact_curve=kondo_exact_curve,
+    order=0,
+)

@@ -1,35 +1,14 @@
-"""The ``nrgsolve`` command line: parses, calls and reports; no physics here.
-
-Commands: ``run``, ``sweep``, ``plot``, ``inspect``.  Every input error
-(bad config, bad file, bad range, existing output) is one line on stderr and
-exit code 2; nothing is written.
-"""
+"""``nrgsolve run``: one configuration, all twists, one HDF5 result file."""
 
 from __future__ import annotations
 
-import argparse
 import sys
 from pathlib import Path
 
-from .errors import NrgInputError, NrgNumericalError
+from ..errors import NrgInputError
+from .common import OVERWRITE_HINT, progress_bar
 
-__all__ = ["main"]
-
-
-class _Parser(argparse.ArgumentParser):
-    def error(self, message):
-        self.exit(2, f"nrgsolve: error: {message}\n")
-
-
-def _fail(msg: str) -> int:
-    print(f"nrgsolve: error: {msg}", file=sys.stderr)
-    return 2
-
-
-def _progress_bar(total, quiet, desc):
-    from tqdm import tqdm
-    disable = quiet or not sys.stderr.isatty()
-    return tqdm(total=total, desc=desc, unit="it", disable=disable, leave=False)
+__all__ = ["add_command", "cmd_run"]
 
 
 def _output_path(spec, override):
@@ -43,10 +22,11 @@ def _output_path(spec, override):
 
 
 def cmd_run(args) -> int:
-    from .config import load_config
-    from .solve import solve, n_iterations, bath_from_spec
-    from .store import write_result, check_output_path
-    from .resources import check_resources, concurrent_workers, note
+    from ..config import load_config
+    from ..solve import solve, n_iterations, bath_from_spec
+    from ..store import write_result, check_output_path
+    from ..result import result_from_run
+    from ..resources import check_resources, concurrent_workers, note
 
     spec = load_config(args.config)
     if spec.sweep.parameters:
@@ -58,7 +38,7 @@ def cmd_run(args) -> int:
     flag = "--output" if args.output is not None else "output.file"
     if not str(out).endswith((".h5", ".hdf5")):
         raise NrgInputError(f"{flag}: got {str(out)[:200]!r}; allowed: a path ending in .h5")
-    check_output_path(out, args.force, name=flag, create_folder=False)
+    check_output_path(out, args.force, name=flag, create_folder=False, hint=OVERWRITE_HINT)
     bath = bath_from_spec(spec)
     workers = concurrent_workers(spec)
     est = check_resources(spec, bath, workers=workers)
@@ -66,13 +46,13 @@ def cmd_run(args) -> int:
     if msg and not args.quiet:
         print(f"nrgsolve: note: {msg}", file=sys.stderr)
     total = n_iterations(spec, bath)
-    with _progress_bar(total, args.quiet, f"{spec.impurity.model} ({spec.discretization.twists} twist(s))") as bar:
+    with progress_bar(total, args.quiet, f"{spec.impurity.model} ({spec.discretization.twists} twist(s))") as bar:
         result = solve(spec, progress=bar.update)
-    path = write_result(result, out, force=args.force)
+    path = write_result(result_from_run(result), out, overwrite=args.force, name=flag, hint=OVERWRITE_HINT)
     if not args.quiet:
-        from .inspect_result import summary_lines
-        from .uncertainty import headline_values
-        from .observables.kondo_scale import WILSON_NUMBER
+        from ..inspect_result import summary_lines
+        from ..uncertainty import headline_values
+        from ..observables.kondo_scale import WILSON_NUMBER
         s, d = result.summary, spec.discretization
         scheme = d.scheme + ((" with A_Λ correction" if d.wilson_correction else " without A_Λ correction")
                              if d.scheme == "wilson" else "")
@@ -94,48 +74,14 @@ def cmd_run(args) -> int:
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="nrgsolve", description="Numerical renormalization group solver for quantum impurity models.")
-    from . import __version__
-    p.add_argument("--version", action="version", version=f"nrgsolve {__version__}")
-    sub = p.add_subparsers(dest="command", parser_class=_Parser)
-    sub.required = True
+def add_command(sub) -> None:
+    """Register ``run``."""
     r = sub.add_parser("run", help="run one config (all twists) and write an HDF5 result file")
     r.add_argument("config", help="TOML config file")
     r.add_argument("--output", "-o", help="result file (default: [output] file, or <config name>.h5 here)")
     r.add_argument("--force", action="store_true", help="overwrite an existing result file")
     r.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
     r.add_argument("--error-estimate", action="store_true",
-                   help="also run with 1.5 x kept states and at a coarser Λ with twice the twists, and give each headline number an "
-                        "uncertainty (same as run.error_estimate = true; about 3 x the time)")
+                   help="also run with 1.5 x kept states and at a coarser Λ with twice the twists, and give each "
+                        "headline number an uncertainty (same as run.error_estimate = true; about 3 x the time)")
     r.set_defaults(func=cmd_run)
-    from . import cli_extra
-    cli_extra.add_commands(sub)
-    return p
-
-
-def main(argv=None) -> int:
-    from .workers import Terminated, WorkerDied, install_termination_handler
-
-    install_termination_handler()      # SIGTERM/SIGHUP end the run like Ctrl-C: workers stopped, nothing written
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    try:
-        return args.func(args)
-    except NrgInputError as exc:
-        return _fail(str(exc))
-    except NrgNumericalError as exc:
-        return _fail(f"numerical problem: {exc}")
-    except WorkerDied as exc:
-        print(f"nrgsolve: error: {exc}; no output written", file=sys.stderr)
-        return 1
-    except Terminated as exc:
-        print(f"nrgsolve: error: terminated (signal {exc.signum}); no output written", file=sys.stderr)
-        return 128 + exc.signum
-    except KeyboardInterrupt:
-        print("nrgsolve: error: interrupted; no output written", file=sys.stderr)
-        return 130
-
-
-if __name__ == "__main__":
-    sys.exit(main())
