@@ -127,7 +127,7 @@ def spectral_case(kept: int, symmetry: str, iterations: int, threads: int = 1) -
     from nrgsolve.engine import make_symmetry, EngineSettings
     from nrgsolve.engine.iterate import Step
     from nrgsolve.models import anderson_block
-    from nrgsolve.observables.spectral import spectral_run, impurity_operators
+    from nrgsolve.engine.backward import spectral_run, impurity_operators
     from nrgsolve.solve import energy_scale
 
     Lam = 2.0

@@ -45,11 +45,37 @@ import numpy as np
 
 from .clebsch import cg
 
-__all__ = ["block_operator_coef", "transform_block_operator"]
+__all__ = ["block_operator_coef", "transform_block_operator", "operator_targets", "SPINOR", "VECTOR"]
+
+#: Twice the rank of a spinor (fermionic, spin-½) operator such as d†_σ.
+SPINOR = 1
+#: Twice the rank of a charge-neutral spin vector (bosonic) such as the impurity spin S.
+VECTOR = 2
 
 
-def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float:
-    """Recoupling coefficient of a spinor operator acting on the old block.
+def operator_targets(sym, comp, label, twice_rank: int = SPINOR) -> list:
+    """Block labels an operator connects ``label`` to.
+
+    Spinors (``twice_rank`` = 1) raise the charge of channel ``comp`` by one
+    (:meth:`f_targets` of the symmetry); the spin vector (``twice_rank`` = 2,
+    component ``comp`` ignored) keeps every charge and changes S by −1, 0, +1
+    in su2 mode (0 → 0 excluded), or keeps the label (its S_z component) in
+    abelian mode.
+    """
+    if twice_rank == SPINOR:
+        return sym.f_targets(comp, label)
+    if sym.name == "abelian":
+        return [tuple(label)]
+    q, s2 = tuple(label[:-1]), int(label[-1])
+    return [q + (t,) for t in (s2 - 2, s2, s2 + 2) if t >= 0 and (t or s2)]
+
+
+def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out, twice_rank: int = SPINOR) -> float:
+    """Recoupling coefficient of a spinor (or spin-vector) operator acting on the old block.
+
+    For the spin vector (``twice_rank`` = 2, bosonic: no sign from the site)
+    the same formula holds with the rank-1 Clebsch–Gordan coefficients
+    ⟨S M; 1 q|S' M'⟩ in place of ⟨S M; ½ σ|S' M'⟩.
 
     Parameters
     ----------
@@ -71,10 +97,10 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float
         (reduced elements in su2 mode, plain elements in abelian mode).
     """
     site = sym.site[a]
-    sign = -1.0 if site.n_fermions % 2 else 1.0
+    sign = -1.0 if (site.n_fermions % 2 and twice_rank % 2) else 1.0
     if sym.name == "abelian":
         return sign
-    key = ("blockop", L_old_in[-1], a, L_in[-1], L_old_out[-1], L_out[-1])
+    key = ("blockop", twice_rank, L_old_in[-1], a, L_in[-1], L_old_out[-1], L_out[-1])
     cache = sym._coef_cache
     if key in cache:
         return cache[key]
@@ -82,9 +108,9 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float
     sa = site.label[-1]
     total = 0.0
     den = 0.0
-    for sigma in (1, -1):
+    for sigma in range(twice_rank, -twice_rank - 1, -2):
         M = Sp - sigma
-        den = cg(S, M, 1, sigma, Sp, Sp)
+        den = cg(S, M, twice_rank, sigma, Sp, Sp)
         if den != 0.0:
             break
     if den != 0.0:
@@ -95,15 +121,15 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float
             if c1 == 0.0:
                 continue
             c2 = cg(S1p, m1p, sa, ma, Sp, Sp)
-            c3 = cg(S1, m1, 1, sigma, S1p, m1p)
+            c3 = cg(S1, m1, twice_rank, sigma, S1p, m1p)
             total += c1 * c2 * c3
         total = sign * total / den
     cache[key] = total
     return total
 
 
-def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=None):
-    """Matrices of an old-block spinor operator between the new eigenstates.
+def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=None, twice_rank: int = SPINOR):
+    """Matrices of an old-block spinor (or spin-vector) operator between the new eigenstates.
 
     Parameters
     ----------
@@ -119,6 +145,8 @@ def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=
     rows, cols : dict L -> int, optional
         Keep only the lowest ``rows[L_out]`` eigenstates on the left and
         ``cols[L_in]`` on the right (default: all states).
+    twice_rank : int
+        1 for spinors (fermionic), 2 for the spin vector (bosonic, reduced elements of rank 1).
 
     Returns
     -------
@@ -144,11 +172,11 @@ def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=
         ci = vectors[Li].shape[1] if cols is None else cols.get(Li, 0)
         if ci == 0:
             continue
-        targets = set(sym.f_targets(comp, Li))
+        targets = set(operator_targets(sym, comp, Li, twice_rank))
         X = {}
         for (Lio, a), ri, ni in subs:
             Ui = vectors[Li][ri:ri + ni, :ci]
-            for Loo in sym.f_targets(comp, Lio):
+            for Loo in operator_targets(sym, comp, Lio, twice_rank):
                 M = F_old.get((Loo, Lio))
                 if M is None:
                     continue
@@ -159,7 +187,7 @@ def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=
                     co = vectors[Lo].shape[1] if rows is None else rows.get(Lo, 0)
                     if co == 0:
                         continue
-                    c = block_operator_coef(sym, comp, Lio, a, Li, Loo, Lo)
+                    c = block_operator_coef(sym, comp, Lio, a, Li, Loo, Lo, twice_rank)
                     if c == 0.0:
                         continue
                     ro, no = where[(Loo, a, Lo)]

@@ -1,0 +1,624 @@
+"""The backward (spectral) pass of the complete basis and the full density matrix.
+
+Physics
+-------
+The complete basis of discarded states (Anders & Schiller 2005): the states
+discarded at iteration N, times every state of the rest of the chain, for all
+N (at the last iteration every state counts as discarded), span the whole Fock
+space; each is an approximate eigenstate with energy E_s^N.  The full density
+matrix (Weichselbaum & von Delft 2007)
+
+.. math::
+
+    ρ = \\sum_N \\sum_{s∈D_N,e} \\frac{e^{-E^N_s/T}}{Z} |s e⟩_N⟨s e|_N ,
+    \\qquad Z = \\sum_N d^{N_{last}-N} \\sum_{s∈D_N} (2S_s+1) e^{-E_s^N/T},
+
+with absolute energies E = ground_energy + ω_N·energies (units of D) and
+d = 4^K states per added site (K channels).  Its reduced form on iteration N
+is block-diagonal, ρ^N = ρ^N_{KK} ⊕ ρ^N_{DD}: the discarded part is diagonal
+(the Boltzmann weights times d^{N_last−N}) and the kept part is obtained by
+tracing the next iteration's reduced density matrix over the added site.
+
+The correlator of B = O_1^† and C = O_2 (operators of the initial block,
+carried through the iterations by :func:`~nrgsolve.engine.operators.transform_block_operator`)
+has the discrete spectral weights
+
+.. math::
+
+    A_{BC}(ω) = \\sum_N \\sum_{(r,s) ∉ KK} (O_1)_{sr}
+        \\left[(O_2 ρ^N)_{sr} ± (ρ^N O_2)_{sr}\\right] δ(ω - E^N_s + E^N_r),
+
+summed over the pairs of states of iteration N of which at least one is
+discarded: + for fermionic operators (anticommutator: the weights of d† sum
+to Tr ρ{d, d†} = 1 at every temperature), − for bosonic ones (commutator: the
+spectral function of the dynamical susceptibility).  The first term is the
+greater, the second the lesser part.
+
+Operators are tensor operators of the spin symmetry: spinors (creation-type,
+spin ½: d†_σ, the composite operator of a Kondo T-matrix) or the spin vector
+(rank 1: the impurity spin).  In su2 mode they are stored as reduced matrix
+elements and the weight of a pair carries the factor (2S_s + 1)/(2k + 1)
+(k the rank: the sum of the squared Clebsch–Gordan coefficients over the
+multiplets, per component); in abelian mode the spinor components (channel,
+σ) are resolved and the vector is represented by its S_z component.
+
+The eigenvectors of every iteration are kept in memory up to a budget and
+spilled to a temporary HDF5 file beyond it (deleted afterwards).  The
+discrete weights are binned on a fine logarithmic grid (weight and mean
+frequency per bin); the observables turn them into curves.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+import time
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from ..errors import NrgInputError
+from .clebsch import cg
+from .iterate import run_chain
+from .operators import transform_block_operator, operator_targets, SPINOR, VECTOR
+
+__all__ = ["DiscreteSpectrum", "TensorOperator", "spectral_run", "impurity_operators", "spinor_operator",
+           "spin_vector_operator", "component_names", "DEFAULT_MEMORY_BUDGET", "DEFAULT_BINS_PER_DECADE"]
+
+DEFAULT_MEMORY_BUDGET = 1.0e9     # bytes of eigenvectors kept in memory before spilling to disk
+DEFAULT_BINS_PER_DECADE = 100
+_HUGE = 1.0e4                      # largest |ω| binned separately (units of D)
+_SKIP = 1e-18                      # density-matrix weight (this shell and later) below which a shell is skipped
+
+
+# ---------------------------------------------------------------------------------------------
+# operators of the initial block
+
+@dataclass(frozen=True)
+class TensorOperator:
+    """An operator of the initial block, as a tensor operator of the spin symmetry.
+
+    Attributes
+    ----------
+    twice_rank : int
+        1: spinor (fermionic, creation-type, spin ½; one component per channel in su2 mode and per
+        (channel, σ) in abelian mode); 2: spin vector (bosonic, charge-neutral; one component ``"z"``).
+    matrices : dict component -> dict (L_out, L_in) -> ndarray
+        (Reduced, in su2 mode) matrix elements between the states of the initial block.
+    """
+
+    twice_rank: int
+    matrices: dict
+
+    @property
+    def fermionic(self) -> bool:
+        return self.twice_rank % 2 == 1
+
+    @property
+    def components(self) -> tuple:
+        return tuple(self.matrices)
+
+
+def spinor_operator(sym, block, creators: dict) -> TensorOperator:
+    """A spinor operator given by its explicit creation-type components.
+
+    Parameters
+    ----------
+    sym : Su2Symmetry or AbelianSymmetry
+    block : ExplicitBlock
+        The initial block (its space and Hamiltonian fix the multiplets).
+    creators : dict channel -> (ndarray, ndarray)
+        The σ = ↑ and σ = ↓ components, with the phases of f†_σ (e.g. (d†_↑, d†_↓)), matrices on
+        ``block.space``.
+    """
+    return TensorOperator(SPINOR, sym.from_explicit(replace(block, last_site=dict(creators))).F)
+
+
+def spin_vector_operator(sym, block, sz) -> TensorOperator:
+    """The spin-vector operator whose z component is ``sz`` (explicit matrix on ``block.space``).
+
+    In su2 mode the reduced element follows from the z component alone:
+    ⟨S'‖S‖S⟩ = ⟨S' M|S_z|S M⟩ / ⟨S M; 1 0|S' M⟩ with M = min(S, S') (non-zero
+    Clebsch–Gordan coefficient for every allowed pair, S = S' = 0 excluded).
+    """
+    space = block.space
+    out = {}
+    if sym.name == "abelian":
+        secs = {key: v for key, _e, v in sym._sectors(space, block.hamiltonian)}
+        for L, v in secs.items():
+            m = v.T @ sz @ v
+            if np.abs(m).max(initial=0) > 1e-12:
+                out[(L, L)] = m
+        return TensorOperator(VECTOR, {"z": out})
+    comps = {key: c for key, _e, c in sym._multiplets(space, block.hamiltonian)}
+    for L, cL in comps.items():
+        for Lp in operator_targets(sym, None, L, VECTOR):
+            if Lp not in comps:
+                continue
+            S2, Sp2 = L[-1], Lp[-1]
+            M2 = min(S2, Sp2)
+            c = cg(S2, M2, 2, 0, Sp2, M2)
+            if c == 0.0:
+                continue
+            red = comps[Lp][(Sp2 - M2) // 2].T @ sz @ cL[(S2 - M2) // 2] / c
+            if np.abs(red).max(initial=0) > 1e-12:
+                out[(Lp, L)] = red
+    return TensorOperator(VECTOR, {"z": out})
+
+
+def impurity_operators(sym, block, self_energy: bool = False) -> dict:
+    """The spinor operators of the d level: ``"d"`` (d†) and, with ``self_energy``, ``"dn"`` (d†_σ n_{d,−σ}).
+
+    ``block.last_site[0]`` holds (d†_↑, d†_↓) of the impurity level (Anderson model).
+    Returns dict name -> dict component -> dict (L_out, L_in) -> ndarray (the plain matrices of
+    :class:`TensorOperator`, spinors).
+    """
+    up, dn = block.last_site[0]
+    ops = {"d": sym.from_explicit(block).F}
+    if self_energy:
+        n_up, n_dn = up @ up.T, dn @ dn.T
+        # d†_σ n_{−σ} = d†_σ n_d is a spin-½ tensor with the phases of d†_σ
+        ops["dn"] = spinor_operator(sym, block, {0: (up @ n_dn, dn @ n_up)}).matrices
+    return ops
+
+
+def component_names(sym, op: TensorOperator) -> tuple:
+    """Names of the stored components: ``"spin"`` (su2; ``"spin1"`` … for further channels),
+    ``"up"``/``"down"`` (abelian; ``"up1"`` … for further channels), ``"z"`` for the spin vector."""
+    if not op.fermionic:
+        return ("z",)
+    out = []
+    for c in op.components:
+        if sym.name == "su2":
+            out.append("spin" if c == 0 else f"spin{c}")
+        else:
+            out.append(("up" if c[1] > 0 else "down") + (f"{c[0]}" if c[0] else ""))
+    return tuple(out)
+
+
+# ---------------------------------------------------------------------------------------------
+# results
+
+@dataclass(frozen=True)
+class DiscreteSpectrum:
+    """Discrete (binned or raw) spectral weights of impurity correlators at several temperatures.
+
+    Attributes
+    ----------
+    temperatures : ndarray, shape (n_T,)
+        Temperatures (units of D; 0 means the ground state).
+    components : tuple of str
+        ``("spin",)`` in su2 mode (either spin, A_↑ = A_↓) or ``("up", "down")`` (abelian).
+    correlators : tuple of str
+        ``"G"`` (⟨⟨d_σ; d†_σ⟩⟩) and optionally ``"F"`` (⟨⟨d_σ n_{d,−σ}; d†_σ⟩⟩).
+    omega : ndarray, shape (n_corr, n_T, n_comp, P)
+        Pole positions (units of D): bin centres of weight, or the raw poles.
+    weight : ndarray, shape (n_corr, n_T, n_comp, P)
+        Pole weights (dimensionless; the G weights of each spin sum to 1).
+    total : ndarray, shape (n_corr, n_T, n_comp)
+        Sum of all weights (before binning).
+    lesser : ndarray, shape (n_corr, n_T, n_comp)
+        Sum of the hole (lesser) part; for G this is ⟨n_dσ⟩.
+    lowest_scale : float
+        ω of the last iteration (units of D).
+    forward_seconds, spectral_seconds : float
+        Wall time of the plain engine iteration and the extra time of the spectral pass.
+    spilled_bytes : int
+        Bytes of eigenvectors written to the temporary file (0: all in memory).
+    correlator_components : tuple of tuple of str
+        The component names of each correlator (a spin-vector correlator has the one component
+        ``"z"`` and uses index 0 of the component axis); empty: all as ``components``.
+    """
+
+    temperatures: np.ndarray
+    components: tuple
+    correlators: tuple
+    omega: np.ndarray
+    weight: np.ndarray
+    total: np.ndarray
+    lesser: np.ndarray
+    lowest_scale: float
+    forward_seconds: float = 0.0
+    spectral_seconds: float = 0.0
+    spilled_bytes: int = 0
+    correlator_components: tuple = ()
+
+    @property
+    def occupation(self) -> np.ndarray:
+        """⟨n_d⟩ (both spins) at each temperature, shape (n_T,)."""
+        lesser = self.lesser[self.correlators.index("G")]
+        return lesser.sum(axis=1) * (2.0 if len(self.components) == 1 else 1.0)
+
+
+
+# ---------------------------------------------------------------------------------------------
+# storage of the eigenvectors between the forward and the backward pass
+
+class _VectorStore:
+    """Eigenvectors of every iteration: in memory up to ``budget`` bytes, then in a temporary HDF5 file."""
+
+    def __init__(self, budget: float, folder: str | None):
+        self.budget = float(budget)
+        self.folder = folder
+        self.in_memory = 0
+        self.spilled = 0
+        self._items = []
+        self._file = None
+        self._path = None
+
+    def add(self, vectors: dict):
+        size = sum(U.nbytes for U in vectors.values())
+        if self.in_memory + size <= self.budget:
+            self._items.append(("mem", vectors))
+            self.in_memory += size
+            return
+        if self._file is None:
+            import h5py
+            fd, path = tempfile.mkstemp(prefix="nrgsolve_vectors_", suffix=".h5", dir=self.folder)
+            os.close(fd)
+            self._path = path
+            self._file = h5py.File(path, "w")
+        k = len(self._items)
+        g = self._file.create_group(str(k))
+        labels = list(vectors)
+        for j, L in enumerate(labels):
+            g.create_dataset(str(j), data=vectors[L])
+        self._file.flush()
+        self._items.append(("disk", labels))
+        self.spilled += size
+
+    def get(self, k: int) -> dict:
+        kind, item = self._items[k]
+        if kind == "mem":
+            return item
+        g = self._file[str(k)]
+        return {L: g[str(j)][()] for j, L in enumerate(item)}
+
+    def release(self, k: int):
+        self._items[k] = ("gone", None)
+
+    def close(self):
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+        if self._path is not None:
+            try:
+                os.unlink(self._path)
+            except OSError:
+                pass
+            self._path = None
+        self._items = []
+
+
+# ---------------------------------------------------------------------------------------------
+# the backward pass
+
+def _restrict(F, rows, cols):
+    out = {}
+    for (Lo, Li), M in F.items():
+        r, c = rows.get(Lo, 0), cols.get(Li, 0)
+        if r and c:
+            out[(Lo, Li)] = M[:r, :c]
+    return out
+
+
+def _log_weights(shells, temperatures, n_last, d_site, tol):
+    """Per shell and block, the logarithm of the density-matrix weight (per component) of every
+    discarded state, for each temperature; −inf for kept states.  Returns (logw, logZ)."""
+    e_min = min(float(np.min(sh["ground"] + sh["scale"] * E[sh["kept"][L]:]))
+                for sh in shells for L, E in sh["energies"].items() if len(E) > sh["kept"][L])
+    out, logz = [], []
+    for T in temperatures:
+        per_shell, terms = [], []
+        for sh in shells:
+            blocks = {}
+            env = (n_last - sh["index"]) * math.log(d_site)
+            for L, E in sh["energies"].items():
+                k = sh["kept"][L]
+                lw = np.full(len(E), -np.inf)
+                ex = sh["ground"] + sh["scale"] * E[k:] - e_min
+                if T > 0:
+                    lw[k:] = env - ex / T
+                else:
+                    lw[k:] = np.where(ex <= tol, env, -np.inf)
+                blocks[L] = lw
+                if len(E) > k:
+                    terms.append(lw[k:] + math.log(sh["mult"][L]))
+            per_shell.append(blocks)
+        allt = np.concatenate(terms)
+        m = float(np.max(allt))
+        lz = m + math.log(float(np.sum(np.exp(allt - m))))
+        out.append(per_shell)
+        logz.append(lz)
+    return out, logz
+
+
+class _Bins:
+    """Accumulates weights on a logarithmic grid of |ω| (both signs, plus a zero bin)."""
+
+    def __init__(self, shape, lowest, per_decade):
+        self.raw = per_decade is None
+        self.shape = shape
+        if self.raw:
+            self.omega = [[] for _ in range(int(np.prod(shape)))]
+            self.weight = [[] for _ in range(int(np.prod(shape)))]
+            return
+        self.tiny = lowest * 1e-4
+        self.per_decade = per_decade
+        self.nb = int(math.ceil(math.log10(_HUGE / self.tiny) * per_decade))
+        n = 2 * self.nb + 1
+        self.w = np.zeros(shape + (n,))
+        self.wom = np.zeros(shape + (n,))
+        j = np.arange(self.nb)
+        lo = self.tiny * 10.0 ** (j / per_decade)
+        hi = self.tiny * 10.0 ** ((j + 1) / per_decade)
+        hi[-1] = np.inf                                   # the top bin takes everything above
+        mid = np.sqrt(lo * np.minimum(hi, 10 * lo))
+        self.centre = np.concatenate([-mid[::-1], [0.0], mid])
+        self.lower = np.concatenate([-hi[::-1], [-self.tiny], lo])
+        self.upper = np.concatenate([-lo[::-1], [self.tiny], hi])
+
+    def keys(self, omega):
+        if self.raw:
+            return omega
+        a = np.abs(omega)
+        j = np.floor(np.log10(np.maximum(a, self.tiny) / self.tiny) * self.per_decade).astype(np.int64)
+        j = np.clip(j, 0, self.nb - 1)
+        return np.where(a < self.tiny, self.nb, np.where(omega > 0, self.nb + 1 + j, self.nb - 1 - j))
+
+    def add(self, index, keys, omega, weight):
+        if self.raw:
+            flat = int(np.ravel_multi_index(index, self.shape))
+            self.omega[flat].append(omega)
+            self.weight[flat].append(weight)
+            return
+        n = self.w.shape[-1]
+        self.w[index] += np.bincount(keys, weights=weight, minlength=n)
+        self.wom[index] += np.bincount(keys, weights=weight * omega, minlength=n)
+
+    def result(self):
+        if self.raw:
+            flat_o = [np.concatenate(o) if o else np.zeros(0) for o in self.omega]
+            flat_w = [np.concatenate(w) if w else np.zeros(0) for w in self.weight]
+            P = max(len(o) for o in flat_o)
+            om = np.zeros((len(flat_o), P))
+            we = np.zeros((len(flat_o), P))
+            for i, (o, w) in enumerate(zip(flat_o, flat_w)):
+                om[i, :len(o)] = o
+                we[i, :len(w)] = w
+            return om.reshape(self.shape + (P,)), we.reshape(self.shape + (P,))
+        # weighted mean frequency of each bin; the bin centre where the weights nearly cancel
+        ok = self.w != 0
+        mean = np.where(ok, self.wom / np.where(ok, self.w, 1.0), 0.0)
+        inside = ok & (mean >= self.lower) & (mean <= self.upper)
+        om = np.where(inside, mean, np.broadcast_to(self.centre, self.w.shape))
+        return om, self.w.copy()
+
+
+def _as_tensor(op) -> TensorOperator:
+    return op if isinstance(op, TensorOperator) else TensorOperator(SPINOR, op)
+
+
+def spectral_run(initial, initial_index, initial_scale, sym, steps, settings, operators,
+                 temperatures, correlators=(("G", "d", "d"),), memory_budget=DEFAULT_MEMORY_BUDGET,
+                 bins_per_decade=DEFAULT_BINS_PER_DECADE, spill_folder=None, progress=None):
+    """Run the engine and the spectral (backward) pass of the full density matrix.
+
+    Parameters
+    ----------
+    initial, initial_index, initial_scale, sym, steps, settings, progress
+        As for :func:`nrgsolve.engine.run_chain` (``initial`` from ``sym.from_explicit``).
+    operators : dict name -> TensorOperator (or dict component -> dict (L_out, L_in) -> ndarray: a spinor)
+        Operators of the initial block (:func:`impurity_operators`, :func:`spinor_operator`,
+        :func:`spin_vector_operator`).
+    temperatures : sequence of float
+        Temperatures ≥ 0 (units of D); 0 is the ground state of the last iteration.
+    correlators : sequence of (name, op1, op2)
+        Correlator ``name`` of B = op1† with C = op2 (e.g. ("G", "d", "d"), ("F", "dn", "d"));
+        both operators of one correlator must have the same rank.  Fermionic: anticommutator
+        weights; bosonic: commutator weights.
+    memory_budget : float
+        Bytes of eigenvectors kept in memory; beyond it they go to a temporary
+        HDF5 file in ``spill_folder`` (default: the system's temporary folder),
+        deleted before returning.
+    bins_per_decade : int or None
+        Logarithmic bins per decade of |ω| for the discrete weights; None keeps
+        every pole (short chains and tests only).
+
+    Returns
+    -------
+    (EngineResult, DiscreteSpectrum)
+
+    Raises
+    ------
+    NrgInputError
+        A negative or non-finite temperature, an unknown operator name, or operators of different
+        rank in one correlator.
+    """
+    temps = np.asarray(temperatures, dtype=float).ravel()
+    if temps.size == 0 or not np.all(np.isfinite(temps)) or np.any(temps < 0):
+        raise NrgInputError(f"spectral.temperatures: got {list(temps)}; allowed: one or more numbers >= 0 (units of D)")
+    for name, o1, o2 in correlators:
+        for o in (o1, o2):
+            if o not in operators:
+                raise NrgInputError(f"spectral correlator {name}: unknown operator {o!r}; allowed: {', '.join(operators)}")
+    ops = {nm: _as_tensor(op) for nm, op in operators.items()}
+    for name, o1, o2 in correlators:
+        if ops[o1].twice_rank != ops[o2].twice_rank:
+            raise NrgInputError(f"spectral correlator {name}: operators {o1!r} and {o2!r} differ in rank")
+    if not steps:
+        raise NrgInputError("spectral pass: the chain has no site to add; allowed: at least one step")
+    names = list(ops)
+    store = _VectorStore(memory_budget, spill_folder)
+    shells = []
+    state = {"F": None, "sink": 0.0}
+    last_index = steps[-1].index
+
+    def sink(index, energies, vectors, layout, kept):
+        t0 = time.perf_counter()
+        if state["F"] is None:       # first call: the kept states of the initial block
+            kept0 = {L: 0 for L in initial.energies}
+            for subs in layout.values():
+                for (Lo, _a), _off, n in subs:
+                    kept0[Lo] = n
+            shells.append({"index": initial_index, "energies": dict(initial.energies), "kept": kept0,
+                           "ground": 0.0, "scale": 1.0, "layout": None, "F_old": None})
+            state["F"] = {nm: {c: _restrict(ops[nm].matrices[c], kept0, kept0) for c in ops[nm].components}
+                          for nm in names}
+        F_old = state["F"]
+        store.add(vectors)
+        shells.append({"index": index, "energies": energies, "kept": dict(kept), "layout": layout,
+                       "F_old": F_old})
+        if index != last_index:
+            state["F"] = {nm: {c: transform_block_operator(sym, c, F_old[nm][c], vectors, layout, kept, kept,
+                                                           ops[nm].twice_rank)
+                               for c in ops[nm].components} for nm in names}
+        state["sink"] += time.perf_counter() - t0
+
+    try:
+        t_start = time.perf_counter()
+        res = run_chain(initial, initial_index, initial_scale, sym, steps, settings, progress, vector_sink=sink)
+        t_forward = time.perf_counter() - t_start - state["sink"]
+        t1 = time.perf_counter()
+        rec = {r.index: r for r in res.records}
+        for sh in shells[1:]:
+            sh["ground"] = rec[sh["index"]].ground_energy
+            sh["scale"] = rec[sh["index"]].scale
+        shells[-1]["kept"] = {L: 0 for L in shells[-1]["kept"]}      # everything is discarded at the end
+        for sh in shells:
+            sh["mult"] = {L: sym.multiplicity(L) for L in sh["energies"]}
+        d_site = sum(sym.multiplicity(s.label) for s in sym.site)
+        lowest = float(shells[-1]["scale"])
+        logw, logz = _log_weights(shells, temps, last_index, d_site, settings.degeneracy_tol * lowest)
+        spectrum = _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, bins_per_decade)
+        t_spec = time.perf_counter() - t1 + state["sink"]
+    finally:
+        store.close()
+    om, we, total, lesser = spectrum
+    first = ops[correlators[0][2]]
+    return res, DiscreteSpectrum(temperatures=temps, components=component_names(sym, first),
+                                 correlators=tuple(c[0] for c in correlators), omega=om, weight=we,
+                                 total=total, lesser=lesser, lowest_scale=lowest,
+                                 forward_seconds=t_forward, spectral_seconds=t_spec,
+                                 spilled_bytes=int(store.spilled),
+                                 correlator_components=tuple(component_names(sym, ops[c[2]]) for c in correlators))
+
+
+def _reduce_density_matrix(sh, vectors, rhoD_i, rhoK_t, prev_kept, prev_mult):
+    """ρ of the kept states of the previous iteration: the trace of this iteration's ρ over the added site."""
+    new = {}
+    kept = sh["kept"]
+    for Ln, subs in sh["layout"].items():
+        U = vectors[Ln]
+        k = kept[Ln]
+        rD = rhoD_i[Ln]
+        rK = rhoK_t.get(Ln)
+        if not np.any(rD) and (rK is None or not np.any(rK)):
+            continue
+        Z = np.empty_like(U)
+        Z[:, k:] = U[:, k:] * rD[None, :]
+        if k:
+            Z[:, :k] = U[:, :k] @ rK if rK is not None else 0.0
+        cn = sh["mult"][Ln]
+        for (Lo, _a), off, n in subs:
+            R = Z[off:off + n] @ U[off:off + n].T
+            R *= cn / prev_mult[Lo]
+            if Lo in new:
+                new[Lo] += R
+            else:
+                new[Lo] = R
+    return {L: 0.5 * (R + R.T) for L, R in new.items() if prev_kept.get(L, 0)}
+
+
+def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, per_decade):
+    nT, nX = len(temps), len(correlators)
+    comps_of = [ops[o2].components for _n, _o1, o2 in correlators]
+    nC = max(len(c) for c in comps_of)
+    bins = _Bins((nX, nT, nC), lowest, per_decade)
+    total = np.zeros((nX, nT, nC))
+    lesser = np.zeros((nX, nT, nC))
+    su2 = sym.name == "su2"
+    # correlators grouped by (rank, component): one pass over the block pairs per group
+    groups = {}
+    for xi, (_name, o1, o2) in enumerate(correlators):
+        rank = ops[o2].twice_rank
+        for ci, c in enumerate(ops[o2].components):
+            groups.setdefault((rank, c), []).append((xi, ci, o1, o2))
+    # discarded weights per shell/block/temperature, and the weight carried by each shell and later ones
+    rhoD = [[{L: np.exp(lw[L][sh["kept"][L]:] - logz[t]) for L in sh["energies"]}
+             for sh, lw in zip(shells, logw[t])] for t in range(nT)]
+    later = np.zeros((nT, len(shells) + 1))
+    for t in range(nT):
+        for i in range(len(shells) - 1, -1, -1):
+            sh = shells[i]
+            later[t, i] = later[t, i + 1] + sum(float(rhoD[t][i][L].sum()) * sh["mult"][L] for L in sh["energies"])
+    rhoK = [dict() for _ in range(nT)]
+    for i in range(len(shells) - 1, -1, -1):
+        sh = shells[i]
+        active = [t for t in range(nT) if later[t, i] > _SKIP]
+        if not active:
+            if i > 0:
+                store.release(i - 1)
+            continue
+        E, kept, scale = sh["energies"], sh["kept"], sh["scale"]
+        if i == 0:
+            vectors = None
+            F = {nm: op.matrices for nm, op in ops.items()}
+        else:
+            vectors = store.get(i - 1)
+            F = {nm: {c: transform_block_operator(sym, c, sh["F_old"][nm][c], vectors, sh["layout"],
+                                                  twice_rank=op.twice_rank)
+                      for c in op.components} for nm, op in ops.items()}
+        for (rank, c), members in groups.items():
+            pm = 1.0 if rank % 2 else -1.0           # anticommutator (fermions) or commutator (bosons)
+            pairs = sorted(set().union(*(F[o2][c].keys() for _x, _c, _o1, o2 in members)))
+            for (Ls, Lr) in pairs:
+                ks, kr = kept[Ls], kept[Lr]
+                ns, nr = len(E[Ls]), len(E[Lr])
+                if ks == ns and kr == nr:
+                    continue
+                om = scale * (E[Ls][:, None] - E[Lr][None, :])
+                regions = [(slice(0, ks), slice(kr, nr)), (slice(ks, ns), slice(0, nr))]
+                om_flat = np.concatenate([om[a, b].ravel() for a, b in regions])
+                keys = bins.keys(om_flat)
+                fac = sh["mult"][Ls] / (rank + 1.0) if su2 else 1.0
+                for t in active:
+                    rK_s, rK_r = rhoK[t].get(Ls), rhoK[t].get(Lr)
+                    rD_s, rD_r = rhoD[t][i][Ls], rhoD[t][i][Lr]
+                    # O2 ρ (ρ on the lower state r) and ρ O2 (ρ on the upper state s)
+                    cache = {}
+                    for xi, ci, o1, o2 in members:
+                        if o2 not in cache:
+                            M = F[o2][c].get((Ls, Lr))
+                            if M is None:
+                                cache[o2] = None
+                                continue
+                            Fr = np.empty_like(M)
+                            Fr[:, kr:] = M[:, kr:] * rD_r[None, :]
+                            if kr:
+                                Fr[:, :kr] = M[:, :kr] @ rK_r if rK_r is not None else 0.0
+                            Fs = np.empty_like(M)
+                            Fs[ks:] = M[ks:] * rD_s[:, None]
+                            if ks:
+                                Fs[:ks] = rK_s @ M[:ks] if rK_s is not None else 0.0
+                            cache[o2] = (Fr, Fs)
+                        M1 = F[o1][c].get((Ls, Lr))
+                        if M1 is None or cache[o2] is None:
+                            continue
+                        Fr, Fs = cache[o2]
+                        g = np.concatenate([(M1[a, b] * Fr[a, b]).ravel() for a, b in regions])
+                        h = np.concatenate([(M1[a, b] * Fs[a, b]).ravel() for a, b in regions])
+                        g *= fac
+                        h *= fac
+                        total[xi, t, ci] += g.sum() + pm * h.sum()
+                        lesser[xi, t, ci] += h.sum()
+                        bins.add((xi, t, ci), keys, om_flat, g + pm * h)
+        if i == 0:
+            break
+        prev = shells[i - 1]
+        for t in active:
+            rhoK[t] = _reduce_density_matrix(sh, vectors, rhoD[t][i], rhoK[t], prev["kept"], prev["mult"])
+        store.release(i - 1)
+    om, we = bins.result()
+    return om, we, total, lesser
