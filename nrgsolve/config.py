@@ -38,6 +38,8 @@ BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
 SYMMETRIES = ("su2", "abelian")
 THERMO_METHODS = ("full-density-matrix", "conventional")
+#: What the spectral (backward) pass can compute (``spectral.quantities``).
+SPECTRAL_QUANTITIES = ("impurity", "t-matrix", "spin-susceptibility")
 
 
 def _number_list(v, low, allow_low, longest=64):
@@ -178,6 +180,21 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                         "temperatures of the linear conductance G(T) through the dot",
                                         lambda v: _number_list(v, 0.0, False) or _log_range(v),
                                         convert=_temperature_tuple),
+        "quantities": Key(list, None, "-", "list of distinct names from: " + ", ".join(SPECTRAL_QUANTITIES),
+                          "what the backward pass computes: the impurity spectral function A_d(ω, T) "
+                          "(models with a d level), the conduction-electron T-matrix −πρ Im T(ω, T), the "
+                          "dynamical impurity spin susceptibility χ''(ω, T) (default: impurity for models "
+                          "with a d level, t-matrix otherwise)",
+                          lambda v: (isinstance(v, list) and 1 <= len(v) <= len(SPECTRAL_QUANTITIES)
+                                     and all(x in SPECTRAL_QUANTITIES for x in v) and len(set(v)) == len(v)),
+                          convert=tuple),
+        "transport_temperatures": Key((list, dict), None, "D",
+                                      "list of 1 to 64 numbers > 0 and < half_bandwidth, or "
+                                      "{ start, stop, points } (log spacing, 2 to 400 points)",
+                                      "temperatures of the impurity resistivity, thermopower and thermal "
+                                      "conductivity of a dilute alloy (from the T-matrix)",
+                                      lambda v: _number_list(v, 0.0, False) or _log_range(v),
+                                      convert=_temperature_tuple),
         "memory_budget": Key(NUM, 1.0, "GB", "> 0 and <= 10000",
                              "eigenvectors kept in memory for the spectral pass; the rest goes to a temporary file",
                              lambda m: finite(m) and 0 < m <= 1e4),
@@ -379,14 +396,25 @@ class SpectralSpec:
     self_energy: bool = _default("spectral", "self_energy")
     conductance_temperatures: tuple | None = None
     memory_budget: float = _default("spectral", "memory_budget")
+    quantities: tuple | None = None
+    transport_temperatures: tuple | None = None
 
     def __post_init__(self):
         _validate_fields(self, "spectral")
 
     @property
     def requested(self) -> bool:
-        """True when a spectral pass is wanted (spectral or conductance temperatures given)."""
-        return bool(self.temperatures) or bool(self.conductance_temperatures)
+        """True when a spectral pass is wanted (spectral, conductance or transport temperatures given)."""
+        return bool(self.temperatures) or bool(self.conductance_temperatures) or bool(self.transport_temperatures)
+
+    def quantities_for(self, impurity_level: bool) -> tuple:
+        """The quantities of the backward pass: ``quantities``, or the default of the model
+        (``impurity`` with a d level, ``t-matrix`` otherwise); the T-matrix is added when transport
+        temperatures are given."""
+        q = tuple(self.quantities) if self.quantities else (("impurity",) if impurity_level else ("t-matrix",))
+        if self.transport_temperatures and "t-matrix" not in q:
+            q += ("t-matrix",)
+        return q
 
 
 @dataclass(frozen=True)
@@ -820,12 +848,22 @@ def _cross_checks(spec: RunSpec):
     _check_scales(spec)
     sp = spec.spectral
     if sp is not None:
-        asked = "temperatures" if sp.temperatures else "conductance_temperatures"
         if sp.requested and not imp.declaration.impurity_level:
             levels = " or ".join(f'"{m}"' for m in MODELS if model_declaration(m).impurity_level)
-            raise ConfigError(f"spectral.{asked}: expected impurity.model = {levels} "
-                              f"(spectra are computed for the d level), got {imp.model!r}")
-        for key in ("temperatures", "conductance_temperatures"):
+            if sp.quantities and "impurity" in sp.quantities:
+                asked = "quantities"
+            elif sp.conductance_temperatures:
+                asked = "conductance_temperatures"
+            elif sp.self_energy:
+                asked = "self_energy"
+            else:
+                asked = None
+            if asked is not None:
+                raise ConfigError(f"spectral.{asked}: expected impurity.model = {levels} (the impurity spectral "
+                                  f"function, the dot's conductance and the self-energy need a d level), got "
+                                  f"{imp.model!r}; models without a d level offer \"t-matrix\" and "
+                                  f"\"spin-susceptibility\"")
+        for key in ("temperatures", "conductance_temperatures", "transport_temperatures"):
             ts = getattr(sp, key)
             if ts and max(ts) >= bath.half_bandwidth:
                 raise ConfigError(f"spectral.{key}: expected temperatures < half_bandwidth ({bath.half_bandwidth}), "

@@ -209,6 +209,9 @@ class DiscreteSpectrum:
     correlator_components : tuple of tuple of str
         The component names of each correlator (a spin-vector correlator has the one component
         ``"z"`` and uses index 0 of the component axis); empty: all as ``components``.
+    inverse_moment : ndarray, shape (n_corr, n_T, n_comp), optional
+        Σ_p w_p/ω_p over the poles farther than the degeneracy tolerance from ω = 0 (units of 1/D):
+        for a commutator (bosonic) correlator its Kramers–Kronig static limit.
     """
 
     temperatures: np.ndarray
@@ -223,6 +226,7 @@ class DiscreteSpectrum:
     spectral_seconds: float = 0.0
     spilled_bytes: int = 0
     correlator_components: tuple = ()
+    inverse_moment: np.ndarray | None = None
 
     @property
     def occupation(self) -> np.ndarray:
@@ -491,17 +495,18 @@ def spectral_run(initial, initial_index, initial_scale, sym, steps, settings, op
         d_site = sum(sym.multiplicity(s.label) for s in sym.site)
         lowest = float(shells[-1]["scale"])
         logw, logz = _log_weights(shells, temps, last_index, d_site, settings.degeneracy_tol * lowest)
-        spectrum = _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, bins_per_decade)
+        spectrum = _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, bins_per_decade,
+                             settings.degeneracy_tol * lowest)
         t_spec = time.perf_counter() - t1 + state["sink"]
     finally:
         store.close()
-    om, we, total, lesser = spectrum
+    om, we, total, lesser, inverse = spectrum
     first = ops[correlators[0][2]]
     return res, DiscreteSpectrum(temperatures=temps, components=component_names(sym, first),
                                  correlators=tuple(c[0] for c in correlators), omega=om, weight=we,
                                  total=total, lesser=lesser, lowest_scale=lowest,
                                  forward_seconds=t_forward, spectral_seconds=t_spec,
-                                 spilled_bytes=int(store.spilled),
+                                 spilled_bytes=int(store.spilled), inverse_moment=inverse,
                                  correlator_components=tuple(component_names(sym, ops[c[2]]) for c in correlators))
 
 
@@ -531,13 +536,14 @@ def _reduce_density_matrix(sh, vectors, rhoD_i, rhoK_t, prev_kept, prev_mult):
     return {L: 0.5 * (R + R.T) for L, R in new.items() if prev_kept.get(L, 0)}
 
 
-def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, per_decade):
+def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, per_decade, tol):
     nT, nX = len(temps), len(correlators)
     comps_of = [ops[o2].components for _n, _o1, o2 in correlators]
     nC = max(len(c) for c in comps_of)
     bins = _Bins((nX, nT, nC), lowest, per_decade)
     total = np.zeros((nX, nT, nC))
     lesser = np.zeros((nX, nT, nC))
+    inverse = np.zeros((nX, nT, nC))
     su2 = sym.name == "su2"
     # correlators grouped by (rank, component): one pass over the block pairs per group
     groups = {}
@@ -582,6 +588,8 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                 regions = [(slice(0, ks), slice(kr, nr)), (slice(ks, ns), slice(0, nr))]
                 om_flat = np.concatenate([om[a, b].ravel() for a, b in regions])
                 keys = bins.keys(om_flat)
+                apart = np.abs(om_flat) > tol
+                inv_om = np.where(apart, 1.0 / np.where(apart, om_flat, 1.0), 0.0)
                 fac = sh["mult"][Ls] / (rank + 1.0) if su2 else 1.0
                 for t in active:
                     rK_s, rK_r = rhoK[t].get(Ls), rhoK[t].get(Lr)
@@ -613,7 +621,9 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                         h *= fac
                         total[xi, t, ci] += g.sum() + pm * h.sum()
                         lesser[xi, t, ci] += h.sum()
-                        bins.add((xi, t, ci), keys, om_flat, g + pm * h)
+                        w = g + pm * h
+                        inverse[xi, t, ci] += float(w @ inv_om)
+                        bins.add((xi, t, ci), keys, om_flat, w)
         if i == 0:
             break
         prev = shells[i - 1]
@@ -621,4 +631,4 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
             rhoK[t] = _reduce_density_matrix(sh, vectors, rhoD[t][i], rhoK[t], prev["kept"], prev["mult"])
         store.release(i - 1)
     om, we = bins.result()
-    return om, we, total, lesser
+    return om, we, total, lesser, inverse
