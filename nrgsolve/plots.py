@@ -24,7 +24,8 @@ from .result import Result, quantity as _quantity
 from .store import atomic_path, check_output_path
 
 __all__ = ["THERMO_QUANTITIES", "PARAMETER_LABELS", "new_figure", "plot_flow", "plot_flows", "plot_thermo",
-           "differing_parameters", "run_labels", "save_figure", "plot_spectral", "plot_conductance"]
+           "differing_parameters", "run_labels", "save_figure", "plot_spectral", "plot_conductance",
+           "plot_transport", "SPECTRAL_DATASETS", "TRANSPORT_QUANTITIES"]
 
 #: quantity a thermodynamics plot offers -> its name in ``Result.thermo`` (label and unit: nrgsolve.result.QUANTITIES)
 THERMO_QUANTITIES = {"T_chi": "T_chi", "entropy": "entropy", "heat": "heat", "magnetization": "impurity_sz",
@@ -457,8 +458,14 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
     return targets
 
 
-def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "symlog", ax=None):
-    """Impurity spectral function A(ω) of a stored run, one curve per stored temperature.
+#: ``spectral.quantities`` name -> stored name in the /spectral group.
+SPECTRAL_DATASETS = {"impurity": "A", "t-matrix": "t_matrix", "spin-susceptibility": "spin_susceptibility"}
+
+
+def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "symlog", ax=None,
+                  quantity: str = "impurity"):
+    """A spectral quantity of a stored run (default: the impurity spectral function A(ω)), one curve per
+    stored temperature.
 
     Parameters
     ----------
@@ -469,6 +476,8 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     xscale : {"symlog", "linear"}
         Frequency axis: symmetric logarithmic (linear below the smallest stored |ω| × 10) or linear.
     ax : Axes, optional
+    quantity : {"impurity", "t-matrix", "spin-susceptibility"}
+        A_d(ω) (1/D), −πρ Im T(ω) (dimensionless), or χ''(ω) ((g μ_B)²/D).
 
     Returns
     -------
@@ -477,7 +486,7 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     Raises
     ------
     NrgInputError
-        If the file holds no spectral function, or on an unknown ``xscale``.
+        If the file holds no such quantity, or on an unknown ``xscale`` or ``quantity``.
 
     Notes
     -----
@@ -485,18 +494,24 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     is solid and the spin-down curve dashed.
     """
     result = as_results(result, "result")[0]
+    if quantity not in SPECTRAL_DATASETS:
+        raise NrgInputError(f"quantity: got {quantity!r}; allowed: {', '.join(SPECTRAL_DATASETS)}")
+    name = SPECTRAL_DATASETS[quantity]
     sp = result.spectral
-    if sp is None or "A" not in sp:
-        raise NrgInputError(f"{_name(result)}: holds no /spectral/A; run with a [spectral] table "
-                            f"(e.g. temperatures = [0.0]) in the config")
+    if sp is None or name not in sp:
+        from .result import dataset_name
+        raise NrgInputError(f"{_name(result)}: holds no /spectral/{dataset_name('spectral', name)}; run with a "
+                            f"[spectral] table (e.g. temperatures = [0.0], quantities = [\"{quantity}\"]) "
+                            f"in the config")
     if xscale not in ("symlog", "linear"):
         raise NrgInputError(f"xscale: got {xscale!r}; allowed: symlog, linear")
-    use_improved = ("A_improved" in sp) if improved is None else bool(improved)
+    use_improved = quantity == "impurity" and (("A_improved" in sp) if improved is None else bool(improved))
     if use_improved and "A_improved" not in sp:
         raise NrgInputError(f"{_name(result)}: holds no improved estimate; run with spectral.self_energy = true")
     om = np.asarray(sp["omega"], dtype=float)
     temps = np.atleast_1d(np.asarray(sp["temperature"], dtype=float))
-    A = np.asarray(sp["A_improved" if use_improved else "A"], dtype=float)
+    A = np.asarray(sp["A_improved" if use_improved else name], dtype=float)
+    comps = str(sp.attrs.get("components" if name == "A" else f"{name}_components", "")).split(", ")
     spins = A[None] if A.ndim == 2 else A            # (n_spin, n_T, n_ω)
     if ax is None:
         fig, ax = new_figure()
@@ -506,9 +521,9 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     for i, T in enumerate(temps):
         color = f"C{i % 10}"
         for k, a in enumerate(spins):
-            name = "" if len(spins) == 1 else (" ↑" if k == 0 else " ↓")
+            tag = "" if len(spins) == 1 else " " + (comps[k] if k < len(comps) else str(k))
             ax.plot(om, a[i], styles[k % 2], color=color, lw=1.3,
-                    label=(f"T = {T:.3g} D" if T > 0 else "T = 0") + name)
+                    label=(f"T = {T:.3g} D" if T > 0 else "T = 0") + tag)
     if xscale == "symlog":
         pos = om[om > 0]
         lin = float(10 * pos.min()) if pos.size else 1e-12
@@ -521,7 +536,8 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
         ax.minorticks_off()
     ax.set_xlim(-2.0, 2.0)
     ax.set_xlabel(r"$\omega$  [$D$]")
-    ax.set_ylabel(r"$A(\omega)$  [$1/D$]" + (r"  (improved, $\Sigma = UF/G$)" if use_improved else ""))
+    from .result import quantity as _quantity
+    ax.set_ylabel(_quantity("spectral", name).label + (r"  (improved, $\Sigma = UF/G$)" if use_improved else ""))
     ax.grid(alpha=0.25, which="both")
     ax.legend(fontsize=8, frameon=False)
     return fig
@@ -572,3 +588,70 @@ def plot_conductance(results: list[Result], labels: list[str] | None = None, ax=
         ax.legend(fontsize=8, frameon=False)
     return fig
 
+
+
+#: ``plot_transport`` quantities -> (stored name, axis label suffix).
+TRANSPORT_QUANTITIES = ("resistivity", "thermopower", "thermal_conductivity", "lorenz_ratio")
+
+
+def plot_transport(results: list[Result], quantity: str = "resistivity", scale: str | None = None,
+                   normalized: bool = False, labels: list[str] | None = None, ax=None):
+    """Dilute-alloy transport of one or more stored runs against T (or T/T_K) on a log axis.
+
+    Parameters
+    ----------
+    results : list of Result
+        Runs with ``/transport/resistivity`` (spectral.transport_temperatures).
+    quantity : {"resistivity", "thermopower", "thermal_conductivity", "lorenz_ratio"}
+        ρ(T)/ρ_unitary, S(T) (k_B/|e|), κρ_unitary/T (k_B²/e²) or the Lorenz ratio.
+    scale : {None, "kondo"}
+        Temperature axis: T (units of D) or T/T_K (crossover Kondo temperature of each run).
+    normalized : bool
+        Divide each curve by its value at the lowest stored temperature (ρ(T)/ρ(0)).
+    labels : list of str, optional
+    ax : Axes, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    NrgInputError
+        No runs, a run without alloy transport, a run without T_K when ``scale = "kondo"``, or an
+        unknown ``quantity`` or ``scale``.
+    """
+    if not results:
+        raise NrgInputError("results: give at least one result")
+    if quantity not in TRANSPORT_QUANTITIES:
+        raise NrgInputError(f"quantity: got {quantity!r}; allowed: {', '.join(TRANSPORT_QUANTITIES)}")
+    if scale not in (None, "kondo"):
+        raise NrgInputError(f"scale: got {scale!r}; allowed: kondo (or none)")
+    results = as_results(results)
+    for r in results:
+        if r.transport is None or quantity not in r.transport:
+            raise NrgInputError(f"{_name(r)}: holds no /transport/{quantity}; run with "
+                                f"spectral.transport_temperatures in the config")
+        if scale == "kondo" and r.kondo_temperature is None:
+            raise NrgInputError(f"{_name(r)}: has no Kondo temperature; plot against T (no scale)")
+    labels = run_labels(results) if labels is None else list(labels)
+    if ax is None:
+        fig, ax = new_figure()
+    else:
+        fig = ax.figure
+    from .result import quantity as _quantity
+    for r, lab in zip(results, labels):
+        T = np.asarray(r.transport["alloy_temperature"], dtype=float)
+        y = np.asarray(r.transport[quantity], dtype=float)
+        if normalized:
+            y = y / y[int(np.argmin(T))]
+        x = T / r.kondo_temperature if scale == "kondo" else T
+        ax.plot(x, y, "o-", ms=3, lw=1.3, label=lab)
+    ax.set_xscale("log")
+    ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
+    label = _quantity("transport", quantity).label
+    ax.set_ylabel(label + ("  (over its lowest-$T$ value)" if normalized else ""))
+    ax.grid(alpha=0.25, which="both")
+    if len(results) > 1 or labels[0]:
+        ax.legend(fontsize=8, frameon=False)
+    return fig

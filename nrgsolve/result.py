@@ -103,8 +103,23 @@ QUANTITIES: tuple[Quantity, ...] = (
     _Q("spectral", "A_improved", "A_improved", "1/D", r"$A(\omega)$  [$1/D$]", "improved estimate Σ = U F/G"),
     _Q("spectral", "self_energy_real", "self_energy_real", "D", r"Re $\Sigma$", "self-energy, real part"),
     _Q("spectral", "self_energy_imag", "self_energy_imag", "D", r"Im $\Sigma$", "self-energy, imaginary part"),
+    _Q("spectral", "t_matrix", "t-matrix", "1", r"$-\pi\rho\,\mathrm{Im}\,T(\omega)$",
+       "conduction-electron T-matrix (1: unitary limit), per spin/channel component"),
+    _Q("spectral", "spin_susceptibility", "spin-susceptibility", "(g mu_B)^2/D", r"$\chi''(\omega)$  [$(g\mu_B)^2/D$]",
+       "dynamical impurity spin susceptibility χ''(ω) of S_z"),
+    _Q("spectral", "static_susceptibility", "static_susceptibility", "(g mu_B)^2/D", r"$\chi(\omega=0)$",
+       "Kramers–Kronig static limit of χ''(ω) at each temperature"),
     _Q("transport", "temperature", "temperature", "D", r"$T$  [$D$]", "temperatures of the conductance"),
     _Q("transport", "conductance", "conductance", "2e^2/h", r"$G$  [$2e^2/h$]", "linear conductance"),
+    _Q("transport", "alloy_temperature", "alloy_temperature", "D", r"$T$  [$D$]",
+       "temperatures of the dilute-alloy transport"),
+    _Q("transport", "resistivity", "resistivity", "rho_unitary", r"$\rho(T)/\rho_{unitary}$",
+       "impurity resistivity of a dilute alloy in units of the unitary limit"),
+    _Q("transport", "thermopower", "thermopower", "k_B/|e|", r"$S$  [$k_B/|e|$]", "impurity thermopower"),
+    _Q("transport", "thermal_conductivity", "thermal_conductivity", "k_B^2/e^2",
+       r"$\kappa\rho_{unitary}/T$  [$k_B^2/e^2$]", "thermal conductivity (π²/3 at the unitary limit)"),
+    _Q("transport", "lorenz_ratio", "lorenz_ratio", "1", r"$\kappa\rho/(T L_0)$",
+       "Lorenz number over π²/3 (1: Wiedemann–Franz)"),
 )
 del _Q
 
@@ -435,15 +450,34 @@ def result_from_run(run) -> Result:
     spectral = transport = None
     sp = run.spectral
     if sp is not None:
-        data = {"omega": sp.omega, "temperature": sp.temperatures, "A": _spin_first(sp.spectral),
-                "occupation": sp.occupation}
+        data = {"omega": sp.omega, "temperature": sp.temperatures}
+        attrs = {"broadening": float(sp.broadening)}
+        if sp.spectral is not None:
+            data.update(A=_spin_first(sp.spectral), occupation=sp.occupation)
+            attrs["components"] = ", ".join(sp.components)
         if sp.improved is not None:
             data.update(A_improved=_spin_first(sp.improved), self_energy_real=_spin_first(sp.self_energy.real),
                         self_energy_imag=_spin_first(sp.self_energy.imag))
-        spectral = Group("spectral", data, {"broadening": float(sp.broadening), "components": ", ".join(sp.components)})
+        dyn = getattr(sp, "dynamics", None)
+        if dyn is not None:
+            attrs["quantities"] = ", ".join(dyn.quantities)
+            for q, name in (("t-matrix", "t_matrix"), ("spin-susceptibility", "spin_susceptibility")):
+                if q in dyn.curves:
+                    data[name] = _spin_first(dyn.curves[q])
+                    attrs[f"{name}_components"] = ", ".join(dyn.components[q])
+            if dyn.static_susceptibility is not None:
+                data["static_susceptibility"] = np.asarray(dyn.static_susceptibility, float)
+        spectral = Group("spectral", data, attrs)
+    tr = {}
     if run.transport is not None:
-        transport = Group("transport", {"temperature": run.transport.temperature,
-                                        "conductance": run.transport.conductance})
+        tr.update(temperature=run.transport.temperature, conductance=run.transport.conductance)
+    alloy = getattr(run, "alloy_transport", None)
+    if alloy is not None:
+        tr.update(alloy_temperature=alloy.temperature, resistivity=alloy.resistivity,
+                  thermopower=alloy.thermopower, thermal_conductivity=alloy.thermal_conductivity,
+                  lorenz_ratio=alloy.lorenz_ratio)
+    if tr:
+        transport = Group("transport", tr)
     return Result(spec=run.spec, thermo=_thermo_group(run.thermo), summary=summary, flow=Group("flow", flow),
                   diagnostics=diagnostics, chain=chain, twists=tuple(twists), spectral=spectral,
                   transport=transport, warnings=tuple(run.warnings), provenance=provenance(run.spec))

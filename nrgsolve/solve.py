@@ -64,6 +64,7 @@ class RunResult:
     warnings: list = field(default_factory=list)
     spectral: object = None          # SpectralCurves (z-averaged) when [spectral] asks for it
     transport: object = None         # ConductanceCurve when spectral.conductance_temperatures is given
+    alloy_transport: object = None   # AlloyTransport when spectral.transport_temperatures is given
     uncertainties: dict = field(default_factory=dict)   # headline name -> uncertainty (run.error_estimate)
     checks: tuple = ()               # descriptions of the checking runs behind the uncertainties
     fixed_points: object = None      # (FixedPointFlow, FixedPointSummary) of the twist z = 1
@@ -167,11 +168,12 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
                               particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
     spectral = None
     if _spectral_wanted(spec):
-        from .observables.spectral import spectral_run, impurity_operators
+        from .engine.backward import spectral_run
+        from .observables.dynamics import backward_operators
         sp = spec.spectral
-        corr = (("G", "d", "d"), ("F", "dn", "d")) if sp.self_energy else (("G", "d", "d"),)
-        res, spectral = spectral_run(initial, first - 1, scale(first - 1), sym,
-                                     steps, settings, impurity_operators(sym, block, sp.self_energy),
+        ops, corr = backward_operators(sym, block, sp.quantities_for(decl.impurity_level), decl.impurity_level,
+                                       sp.self_energy, onsite0=float(chain.onsite[0]))
+        res, spectral = spectral_run(initial, first - 1, scale(first - 1), sym, steps, settings, ops,
                                      _spectral_temperatures(sp), corr, memory_budget=sp.memory_budget * 1e9,
                                      progress=progress)
     else:
@@ -207,20 +209,35 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
 
 def _spectral_wanted(spec: RunSpec) -> bool:
     sp = getattr(spec, "spectral", None)
-    return sp is not None and sp.requested and spec.impurity.declaration.impurity_level
+    return sp is not None and sp.requested
 
 
 def _spectral_temperatures(sp) -> tuple:
-    """All temperatures of the backward pass: the spectral ones and the conductance ones, sorted."""
-    return tuple(sorted(set(sp.temperatures or ()) | set(sp.conductance_temperatures or ())))
+    """All temperatures of the backward pass: the spectral, conductance and transport ones, sorted."""
+    return tuple(sorted(set(sp.temperatures or ()) | set(sp.conductance_temperatures or ())
+                        | set(sp.transport_temperatures or ())))
 
 
 def _spectral_outputs(spec: RunSpec, results, bath):
     """z-averaged spectra (with the improved estimate if asked for) and the conductance curve."""
     from .observables.spectral import average_spectra, hybridization_function, improved_spectral_function
-    from .observables.transport import linear_conductance, ConductanceCurve
+    from .observables.transport import linear_conductance, ConductanceCurve, alloy_transport
+    from .observables.dynamics import dynamics_curves, t_matrix_prefactor
     sp, imp = spec.spectral, spec.impurity
+    decl = imp.declaration
     curves = average_spectra([t.spectral for t in results], sp.broadening, sp.points_per_decade)
+    D = bath.half_bandwidth
+    correction = results[0].coupling_sq / (bath.integral(-D, D) / math.pi)     # A_Λ or 1, as in model_contact
+    t_factor = t_matrix_prefactor(decl.impurity_level, getattr(imp, "hybridization", 0.0) or 0.0,
+                                  1.0 / (2.0 * D), correction)
+    dyn = dynamics_curves(curves.correlators, curves.correlator_components, sp.quantities_for(decl.impurity_level),
+                          decl.impurity_level, t_factor, curves.inverse_moments.get("chi"))
+    curves = replace(curves, dynamics=dyn)
+    alloy = None
+    if sp.transport_temperatures:
+        temps = np.asarray(sp.transport_temperatures, dtype=float)
+        idx = [int(np.flatnonzero(curves.temperatures == T)[0]) for T in temps]
+        alloy = alloy_transport(curves.omega, dyn.curves["t-matrix"][idx], temps)
     if sp.self_energy:
         delta = hybridization_function(bath, imp.hybridization, curves.omega)
         levels = [imp.epsilon_d] if len(curves.components) == 1 else [imp.epsilon_d - 0.5 * imp.field,
@@ -238,13 +255,17 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     if sp.temperatures:
         keep = [int(np.flatnonzero(curves.temperatures == T)[0]) for T in sp.temperatures]
         sub = lambda a: None if a is None else a[keep]
-        curves = replace(curves, temperatures=curves.temperatures[keep], spectral=curves.spectral[keep],
-                         occupation=curves.occupation[keep], gaussian_widths=curves.gaussian_widths[keep],
+        dyn = replace(dyn, curves={q: a[keep] for q, a in dyn.curves.items()},
+                      static_susceptibility=sub(dyn.static_susceptibility))
+        curves = replace(curves, temperatures=curves.temperatures[keep], spectral=sub(curves.spectral),
+                         occupation=sub(curves.occupation), gaussian_widths=curves.gaussian_widths[keep],
                          correlator_f=sub(curves.correlator_f), improved=sub(curves.improved),
-                         self_energy=sub(curves.self_energy))
+                         self_energy=sub(curves.self_energy), dynamics=dyn,
+                         correlators={x: a[keep] for x, a in curves.correlators.items()},
+                         inverse_moments={x: a[:, keep] for x, a in curves.inverse_moments.items()})
     else:
         curves = None
-    return curves, transport
+    return curves, transport, alloy
 
 
 def _solve_twist_reporting(spec, z):
@@ -315,7 +336,8 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
     warnings = run_warnings(spec, max(float(np.max(t.flow.discarded_weight)) for t in results), thermo.temperature,
                             thermo.T_chi, summary.kondo_temperature_crossover,
                             [len(t.onsite) for t in results], [t.z for t in results])
-    spectral, transport = _spectral_outputs(spec, results, bath) if _spectral_wanted(spec) else (None, None)
+    spectral, transport, alloy = (_spectral_outputs(spec, results, bath) if _spectral_wanted(spec)
+                                  else (None, None, None))
     try:
         fixed = fixed_points_of_twist(spec, max(results, key=lambda t: t.z), bath)
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:   # the labels must never cost the run
@@ -323,7 +345,7 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
         warnings.append(f"fixed-point analysis of the flow failed ({exc}); no fixed points stored")
     return RunResult(spec=spec, twists=results, thermo=thermo, summary=summary,
                      wall_seconds=time.perf_counter() - t0, warnings=warnings, spectral=spectral,
-                     transport=transport, fixed_points=fixed)
+                     transport=transport, fixed_points=fixed, alloy_transport=alloy)
 
 
 def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):

@@ -7,7 +7,8 @@ from pathlib import Path
 from ..errors import NrgInputError
 from .common import check_png, files_named, image_options, positive_int, reason
 
-__all__ = ["add_command", "cmd_plot_flow", "cmd_plot_thermo", "cmd_plot_spectral", "cmd_plot_conductance"]
+__all__ = ["add_command", "cmd_plot_flow", "cmd_plot_thermo", "cmd_plot_spectral", "cmd_plot_conductance",
+           "cmd_plot_transport"]
 
 
 def _default_png(name):
@@ -26,6 +27,8 @@ def _plot(args, files, default_name, draw) -> int:
     check_png(png, args.force)
     try:
         figure = draw(results)
+    except NrgInputError:
+        raise
     except (KeyError, IndexError, TypeError, ValueError, AttributeError) as exc:
         raise NrgInputError(f"{files_named(files)}: cannot plot this result file ({reason(exc)})") from None
     written = save_figure(figure, png, force=args.force)
@@ -58,10 +61,35 @@ def cmd_plot_thermo(args) -> int:
 
 
 def cmd_plot_spectral(args) -> int:
-    """Draw the impurity spectral function A(ω) of one result file."""
+    """Draw a spectral quantity (default: the impurity spectral function A(ω)) of one result file."""
     from ..plots import plot_spectral
-    return _plot(args, [args.file], f"{Path(args.file).stem}_spectral.png",
-                 lambda r: plot_spectral(r[0], improved=True if args.improved else None, xscale=args.xscale))
+    quantity = getattr(args, "quantity", "impurity")
+    suffix = "spectral" if quantity == "impurity" else quantity
+    if args.improved and quantity != "impurity":
+        raise NrgInputError(f"--improved: only with --quantity impurity (got --quantity {quantity})")
+
+    def draw(results):
+        try:
+            return plot_spectral(results[0], improved=True if args.improved else None, xscale=args.xscale,
+                                 quantity=quantity)
+        except NrgInputError as exc:      # the library names its arguments; here they are flags
+            raise NrgInputError(str(exc).replace("quantities = [", "spectral.quantities = [")) from None
+
+    return _plot(args, [args.file], f"{Path(args.file).stem}_{suffix}.png", draw)
+
+
+def cmd_plot_transport(args) -> int:
+    """Draw the dilute-alloy resistivity (or thermopower, thermal conductivity) of one or more files."""
+    from ..plots import plot_transport
+
+    def draw(results):
+        try:
+            return plot_transport(results, quantity=args.quantity.replace("-", "_"), scale=args.scale,
+                                  normalized=args.normalized)
+        except NrgInputError as exc:
+            raise NrgInputError(str(exc).replace("plot against T (no scale)", "leave out --scale")) from None
+
+    return _plot(args, args.files, f"transport_{args.quantity}.png", draw)
 
 
 def cmd_plot_conductance(args) -> int:
@@ -73,7 +101,7 @@ def cmd_plot_conductance(args) -> int:
 def add_command(sub) -> None:
     """Register ``plot`` and its kinds."""
     p = sub.add_parser("plot", help="draw figures from result files")
-    kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo,spectral,conductance}", parser_class=type(p))
+    kinds = p.add_subparsers(dest="plot_kind", metavar="{flow,thermo,spectral,conductance,transport}", parser_class=type(p))
     kinds.required = True
     f = kinds.add_parser("flow", help="energy-level flow of one or more runs (even and odd iterations), "
                                       "fixed points shaded")
@@ -93,8 +121,11 @@ def add_command(sub) -> None:
                    help="also draw the exact Bethe-ansatz curve of the runs' Kondo model (needs --scale kondo)")
     image_options(t, "thermo_<quantity>.png")
     t.set_defaults(func=cmd_plot_thermo)
-    a = kinds.add_parser("spectral", help="impurity spectral function A(omega) of one run ([spectral] table)")
+    a = kinds.add_parser("spectral", help="impurity spectral function A(omega), T-matrix or dynamical spin "
+                                          "susceptibility of one run ([spectral] table)")
     a.add_argument("file", help="result file (.h5)")
+    a.add_argument("--quantity", choices=("impurity", "t-matrix", "spin-susceptibility"), default="impurity",
+                   help="A_d(omega), -pi rho Im T(omega) or chi''(omega) (default impurity; must be stored)")
     a.add_argument("--xscale", choices=("symlog", "linear"), default="symlog",
                    help="frequency axis (default symlog)")
     a.add_argument("--improved", action="store_true", help="draw the self-energy improved estimate (must be stored)")
@@ -104,4 +135,14 @@ def add_command(sub) -> None:
     g.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
     image_options(g, "conductance.png")
     g.set_defaults(func=cmd_plot_conductance)
+    r = kinds.add_parser("transport", help="dilute-alloy resistivity, thermopower or thermal conductivity of "
+                                           "one or more runs (spectral.transport_temperatures)")
+    r.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
+    r.add_argument("--quantity", choices=("resistivity", "thermopower", "thermal-conductivity", "lorenz-ratio"),
+                   default="resistivity", help="what to draw (default resistivity, in units of the unitary limit)")
+    r.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
+    r.add_argument("--normalized", action="store_true",
+                   help="divide each curve by its value at the lowest temperature (rho(T)/rho(0))")
+    image_options(r, "transport_<quantity>.png")
+    r.set_defaults(func=cmd_plot_transport)
 

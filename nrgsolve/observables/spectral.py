@@ -71,7 +71,7 @@ weights) is the engine's kernel :func:`nrgsolve.engine.backward.spectral_run`
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -101,9 +101,9 @@ class SpectralCurves:
         Units of D.
     components : tuple of str
         As in :class:`DiscreteSpectrum`.
-    spectral : ndarray, shape (n_T, n_comp, n_ω)
-        A_σ(ω, T) (units of 1/D), from the discrete weights.
-    occupation : ndarray, shape (n_T,)
+    spectral : ndarray, shape (n_T, n_comp, n_ω), or None
+        A_σ(ω, T) (units of 1/D), from the discrete weights (None for models without a d level).
+    occupation : ndarray, shape (n_T,), or None
         ⟨n_d⟩ (both spins), averaged over the twists.
     broadening : float
         Log-Gaussian width b.
@@ -115,6 +115,13 @@ class SpectralCurves:
         A_σ from G = 1/(ω − ε_dσ − Δ(ω) − Σ(ω)), Σ = U F/G (Bulla, Hewson, Pruschke 1998).
     self_energy : ndarray (complex) or None, shape (n_T, n_comp, n_ω)
         Σ_σ(ω) (units of D).
+    correlators : dict name -> ndarray (n_T, n_comp, n_ω)
+        Every broadened correlator of the backward pass (``"G"``, ``"F"``, ``"T"``, ``"chi"``).
+    correlator_components : dict name -> tuple of str
+    inverse_moments : dict name -> ndarray (n_twists, n_T)
+        Σ w/ω of the discrete weights of each twist (first component).
+    dynamics : DynamicsCurves or None
+        The requested quantities (:mod:`nrgsolve.observables.dynamics`).
     """
 
     omega: np.ndarray
@@ -127,6 +134,10 @@ class SpectralCurves:
     correlator_f: np.ndarray | None = None
     improved: np.ndarray | None = None
     self_energy: np.ndarray | None = None
+    correlators: dict = field(default_factory=dict)
+    correlator_components: dict = field(default_factory=dict)
+    inverse_moments: dict = field(default_factory=dict)
+    dynamics: object = None
 
     @property
     def best(self) -> np.ndarray:
@@ -321,19 +332,27 @@ def average_spectra(discrete: list, broadening: float = DEFAULT_BROADENING, poin
     if grid is None:
         big = max(float(np.max(np.abs(d.omega[d.weight != 0]), initial=1.0)) for d in discrete)
         grid = frequency_grid(0.01 * float(widths.min()), 10.0 * max(big, 1.0), points_per_decade)
-    nT, nC = len(temps), len(first.components)
+    nT = len(temps)
     xs = list(first.correlators)
-    acc = np.zeros((len(xs), nT, nC, len(grid)))
+    comps = {x: (first.correlator_components[i] if first.correlator_components else first.components)
+             for i, x in enumerate(xs)}
+    acc = {x: np.zeros((nT, len(comps[x]), len(grid))) for x in xs}
     for d in discrete:
-        for xi in range(len(xs)):
+        for xi, x in enumerate(xs):
             for t in range(nT):
-                for c in range(nC):
-                    acc[xi, t, c] += broaden(d.omega[xi, t, c], d.weight[xi, t, c], grid, broadening, widths[t])
-    acc /= len(discrete)
-    occ = np.mean([d.occupation for d in discrete], axis=0)
-    return SpectralCurves(omega=grid, temperatures=temps, components=first.components, spectral=acc[xs.index("G")],
+                for c in range(len(comps[x])):
+                    acc[x][t, c] += broaden(d.omega[xi, t, c], d.weight[xi, t, c], grid, broadening, widths[t])
+    for x in xs:
+        acc[x] /= len(discrete)
+    has_g = "G" in xs
+    occ = np.mean([d.occupation for d in discrete], axis=0) if has_g else None
+    inverse = ({x: np.array([d.inverse_moment[xi, :, 0] for d in discrete]) for xi, x in enumerate(xs)}
+               if all(d.inverse_moment is not None for d in discrete) else {})
+    return SpectralCurves(omega=grid, temperatures=temps, components=comps["G"] if has_g else first.components,
+                          spectral=acc["G"] if has_g else None,
                           occupation=occ, broadening=float(broadening), gaussian_widths=widths,
-                          correlator_f=acc[xs.index("F")] if "F" in xs else None)
+                          correlator_f=acc.get("F"), correlators=acc, correlator_components=comps,
+                          inverse_moments=inverse)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -11,10 +11,30 @@ with f the Fermi function at temperature T, Γ(ω) = Γ g(ω) the total
 hybridization (both leads) and A_σ the spectral function per spin.  At T = 0
 this is πΓ(0) A(0) = sin²(π⟨n_d⟩/2) by the Friedel sum rule (Langreth 1966).
 Energies and temperatures in units of D (k_B = 1); G in units of 2e²/h.
+
+Dilute magnetic alloy
+---------------------
+For a small concentration of impurities in a metal (Costi, Hewson & Zlatić
+1994, from memory) the transport time of the conduction electrons is
+τ^{-1}(ω, T) ∝ −2 Im T(ω, T), and with t(ω, T) = −πρ Im T (1 at the unitary
+limit) the transport integrals
+
+.. math::
+
+    \\tilde L_n(T) = \\int dω \\left(-\\frac{∂f}{∂ω}\\right) \\frac{ω^n}{t(ω, T)}
+
+give the impurity resistivity ρ(T)/ρ_unitary = 1/L̃_0, the thermopower
+S(T) = −L̃_1/(T L̃_0) (units of k_B/|e|; electrons of charge −|e|, so S > 0 when
+the scattering is stronger above the Fermi level than below) and the thermal
+conductivity through κ ρ_unitary/T = (L̃_2 − L̃_1²/L̃_0)/T² (units of k_B²/e²;
+π²/3 in the unitary limit, the Wiedemann–Franz value).  With several
+channels or spins the integrals are averaged over them (they conduct in
+parallel).
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,7 +43,8 @@ from scipy.special import expit
 from ..errors import NrgInputError
 from .spectral import spectral_weight
 
-__all__ = ["ConductanceCurve", "linear_conductance", "thermal_window"]
+__all__ = ["ConductanceCurve", "linear_conductance", "thermal_window", "AlloyTransport", "transport_integrals",
+           "alloy_transport"]
 
 
 @dataclass(frozen=True)
@@ -94,3 +115,91 @@ def linear_conductance(omega, spectral, temperatures, gamma) -> np.ndarray:
         else:
             out[i] = float(spectral_weight(om, thermal_window(om, T) * integrand))
     return out
+
+
+@dataclass(frozen=True)
+class AlloyTransport:
+    """Impurity transport of a dilute alloy at temperatures (units of D), all shape (n_T,).
+
+    Attributes
+    ----------
+    temperature : ndarray
+        Units of D.
+    resistivity : ndarray
+        ρ(T)/ρ_unitary (dimensionless).
+    thermopower : ndarray
+        S(T) in units of k_B/|e|.
+    thermal_conductivity : ndarray
+        κ(T) ρ_unitary / T in units of k_B²/e² (π²/3 at the unitary limit).
+    lorenz_ratio : ndarray
+        κ ρ/(T L_0), L_0 = π²/3: 1 when the Wiedemann–Franz law holds.
+    """
+
+    temperature: np.ndarray
+    resistivity: np.ndarray
+    thermopower: np.ndarray
+    thermal_conductivity: np.ndarray
+    lorenz_ratio: np.ndarray
+
+
+#: t(ω) below which the scattering is taken as this floor (a vanishing T-matrix would divide by zero).
+_T_FLOOR = 1e-12
+
+
+def transport_integrals(omega, t_matrix, temperature: float, orders=(0, 1, 2)) -> np.ndarray:
+    """L̃_n = ∫ dω (−∂f/∂ω) ω^n / t(ω) for n in ``orders`` (units of D^n).
+
+    Parameters
+    ----------
+    omega : ndarray, shape (n_ω,)
+        Symmetric logarithmic grid with ω = 0 (units of D).
+    t_matrix : ndarray, shape (n_ω,) or (n_comp, n_ω)
+        t(ω) = −πρ Im T (dimensionless); several components are averaged after the integral.
+    temperature : float
+        > 0 (units of D).
+
+    Raises
+    ------
+    NrgInputError
+        For T ≤ 0.
+    """
+    om = np.asarray(omega, dtype=float)
+    t = np.atleast_2d(np.asarray(t_matrix, dtype=float))
+    win = thermal_window(om, temperature)
+    inv = 1.0 / np.maximum(t, _T_FLOOR)
+    return np.array([float(np.mean(spectral_weight(om, win * om ** n * inv))) for n in orders])
+
+
+def alloy_transport(omega, t_matrix, temperatures) -> AlloyTransport:
+    """Resistivity, thermopower and thermal conductivity of a dilute alloy (see the module docstring).
+
+    Parameters
+    ----------
+    omega : ndarray, shape (n_ω,)
+        Frequency grid (units of D) from :func:`~nrgsolve.observables.spectral.frequency_grid`.
+    t_matrix : ndarray, shape (n_T, n_comp, n_ω)
+        −πρ Im T at each temperature.
+    temperatures : ndarray, shape (n_T,)
+        > 0 (units of D).
+
+    Returns
+    -------
+    AlloyTransport
+
+    Raises
+    ------
+    NrgInputError
+        On mismatched shapes or non-positive temperatures.
+    """
+    temps = np.asarray(temperatures, dtype=float).ravel()
+    t = np.asarray(t_matrix, dtype=float)
+    if t.ndim == 2:
+        t = t[:, None, :]
+    if t.ndim != 3 or t.shape[0] != len(temps) or t.shape[-1] != len(np.asarray(omega)):
+        raise NrgInputError(f"alloy_transport: t_matrix has shape {np.shape(t_matrix)}; "
+                            f"expected ({len(temps)}, [n_comp,] {len(np.asarray(omega))})")
+    L = np.array([transport_integrals(omega, t[i], T) for i, T in enumerate(temps)])
+    L0, L1, L2 = L[:, 0], L[:, 1], L[:, 2]
+    kappa = (L2 - L1 ** 2 / L0) / temps ** 2
+    return AlloyTransport(temperature=temps, resistivity=1.0 / L0, thermopower=-L1 / (temps * L0),
+                          thermal_conductivity=kappa, lorenz_ratio=kappa / L0 / (math.pi ** 2 / 3))
