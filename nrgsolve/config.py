@@ -170,6 +170,14 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             lambda v: _number_list(v, 0.0, True), convert=_temperature_tuple),
         "broadening": Key(NUM, 0.6, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
                           lambda b: finite(b) and 0 < b <= 2),
+        "bias_correction": Key(bool, True, "-", "true | false",
+                               "remove the leading bias of the log-Gaussian kernel (second-order deconvolution in "
+                               "ln|ω|; keeps the total weight): power laws |ω|^α are otherwise raised by "
+                               "e^{α(α+1)b²/4}"),
+        "thermal_width": Key(NUM, 0.25, "T", "> 0 and <= 2",
+                             "width of the Gaussian that replaces the log-Gaussian near ω = 0 at temperature T, "
+                             "in units of T (at least twice the last iteration's energy scale)",
+                             lambda w: finite(w) and 0 < w <= 2),
         "points_per_decade": Key(int, 25, "points", ">= 2 and <= 400",
                                  "frequency points per decade of |ω| of the stored spectra", lambda n: 2 <= n <= 400),
         "self_energy": Key(bool, False, "-", "true | false",
@@ -398,6 +406,8 @@ class SpectralSpec:
     memory_budget: float = _default("spectral", "memory_budget")
     quantities: tuple | None = None
     transport_temperatures: tuple | None = None
+    bias_correction: bool = _default("spectral", "bias_correction")
+    thermal_width: float = _default("spectral", "thermal_width")
 
     def __post_init__(self):
         _validate_fields(self, "spectral")

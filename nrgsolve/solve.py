@@ -225,7 +225,8 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     from .observables.dynamics import dynamics_curves, t_matrix_prefactor
     sp, imp = spec.spectral, spec.impurity
     decl = imp.declaration
-    curves = average_spectra([t.spectral for t in results], sp.broadening, sp.points_per_decade)
+    curves = average_spectra([t.spectral for t in results], sp.broadening, sp.points_per_decade,
+                             corrected=sp.bias_correction, thermal_width=sp.thermal_width)
     D = bath.half_bandwidth
     correction = results[0].coupling_sq / (bath.integral(-D, D) / math.pi)     # A_Λ or 1, as in model_contact
     t_factor = t_matrix_prefactor(decl.impurity_level, getattr(imp, "hybridization", 0.0) or 0.0,
