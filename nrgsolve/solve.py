@@ -218,6 +218,22 @@ def _spectral_temperatures(sp) -> tuple:
                         | set(sp.transport_temperatures or ())))
 
 
+def _broadening_wanted(spec: RunSpec, discrete) -> dict:
+    """Which correlator is needed at which temperature of the backward pass: everything at the
+    spectral temperatures, the d level at the conductance ones, the T-matrix at the transport ones."""
+    from .observables.dynamics import QUANTITY_CORRELATORS
+    sp = spec.spectral
+    level = spec.impurity.declaration.impurity_level
+    temps = list(discrete.temperatures)
+    t_name = QUANTITY_CORRELATORS[("t-matrix", level)][0]
+    out = {}
+    for x in discrete.correlators:
+        out[x] = [(T in (sp.temperatures or ())) or (x == "G" and T in (sp.conductance_temperatures or ()))
+                  or (x == "F" and sp.self_energy and T in (sp.conductance_temperatures or ()))
+                  or (x == t_name and T in (sp.transport_temperatures or ())) for T in temps]
+    return out
+
+
 def _spectral_outputs(spec: RunSpec, results, bath):
     """z-averaged spectra (with the improved estimate if asked for) and the conductance curve."""
     from .observables.spectral import average_spectra, hybridization_function, improved_spectral_function
@@ -226,7 +242,8 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     sp, imp = spec.spectral, spec.impurity
     decl = imp.declaration
     curves = average_spectra([t.spectral for t in results], sp.broadening, sp.points_per_decade,
-                             corrected=sp.bias_correction, thermal_width=sp.thermal_width)
+                             corrected=sp.bias_correction, thermal_width=sp.thermal_width,
+                             wanted=_broadening_wanted(spec, results[0].spectral))
     D = bath.half_bandwidth
     correction = results[0].coupling_sq / (bath.integral(-D, D) / math.pi)     # A_Λ or 1, as in model_contact
     t_factor = t_matrix_prefactor(decl.impurity_level, getattr(imp, "hybridization", 0.0) or 0.0,

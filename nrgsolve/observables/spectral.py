@@ -308,15 +308,22 @@ def broaden(omega_p, weight_p, grid, broadening: float = DEFAULT_BROADENING, wid
     inv = np.where(ax > 0, 1.0 / (b * math.sqrt(math.pi) * np.where(ax > 0, ax, 1.0)), 0.0)
     log_part = np.zeros(len(x))
     gauss_part = np.zeros(len(x))
-    for s in range(0, len(op), chunk):
-        o, w = op[s:s + chunk], wp[s:s + chunk]
-        ao = np.abs(o)
-        lo = np.log(np.where(ao > 0, ao, 1.0))
-        same = (x[:, None] * o[None, :] > 0)
-        arg = (lx[:, None] - lo[None, :]) / b - b / 4
-        log_part += (np.where(same, np.exp(-arg * arg), 0.0) * inv[:, None]) @ w
-        if width0 > 0:
-            gauss_part += (np.exp(-((x[:, None] - o[None, :]) / width0) ** 2) / (width0 * math.sqrt(math.pi))) @ w
+    for side in (1.0, -1.0):                 # a pole broadens only onto its own side of ω = 0
+        rows = np.flatnonzero(x * side > 0)
+        poles = np.flatnonzero(op * side > 0)
+        lxr, invr = lx[rows], inv[rows]
+        for s in range(0, len(poles), chunk):
+            sel = poles[s:s + chunk]
+            arg = (lxr[:, None] - np.log(np.abs(op[sel]))[None, :]) / b - b / 4
+            log_part[rows] += (np.exp(-arg * arg) * invr[:, None]) @ wp[sel]
+    if width0 > 0:
+        # the Gaussian share 1 − h(ω) = e^{−(ω/2ω_0)²} is below 1e-60 beyond |ω| = 24 ω_0
+        rows = np.flatnonzero(np.abs(x) < 24.0 * width0)
+        poles = np.flatnonzero(np.abs(op) < 34.0 * width0)
+        for s in range(0, len(poles), chunk):
+            sel = poles[s:s + chunk]
+            gauss_part[rows] += (np.exp(-((x[rows, None] - op[None, sel]) / width0) ** 2)
+                                 / (width0 * math.sqrt(math.pi))) @ wp[sel]
     if width0 == 0:
         out = log_kernel_correction(x, log_part, b) if corrected else log_part
     else:
@@ -357,7 +364,7 @@ def spectral_weight(omega, values) -> np.ndarray:
 
 def average_spectra(discrete: list, broadening: float = DEFAULT_BROADENING, points_per_decade: int = 25,
                     grid: np.ndarray | None = None, corrected: bool = True,
-                    thermal_width: float = DEFAULT_THERMAL_WIDTH) -> SpectralCurves:
+                    thermal_width: float = DEFAULT_THERMAL_WIDTH, wanted: dict | None = None) -> SpectralCurves:
     """Broaden the discrete spectra of several twists on one grid and average them (z-averaging).
 
     Parameters
@@ -374,6 +381,8 @@ def average_spectra(discrete: list, broadening: float = DEFAULT_BROADENING, poin
         Remove the leading log-Gaussian bias (:func:`log_kernel_correction`).
     thermal_width : float
         Gaussian width near ω = 0 in units of T (:func:`gaussian_width`).
+    wanted : dict name -> sequence of bool (n_T,), optional
+        Broaden correlator ``name`` only at the temperatures marked True (the others stay zero).
 
     Returns
     -------
@@ -405,6 +414,8 @@ def average_spectra(discrete: list, broadening: float = DEFAULT_BROADENING, poin
     for d in discrete:
         for xi, x in enumerate(xs):
             for t in range(nT):
+                if wanted is not None and x in wanted and not wanted[x][t]:
+                    continue
                 for c in range(len(comps[x])):
                     acc[x][t, c] += broaden(d.omega[xi, t, c], d.weight[xi, t, c], grid, broadening, widths[t],
                                             corrected=corrected)
