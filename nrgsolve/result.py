@@ -448,6 +448,8 @@ def result_from_run(run) -> Result:
             "final_fixed_point": str(summ.final), "phase_shift": float(summ.phase_shift),
             "screening_channel": int(summ.screening_channel), "fixed_point_text": summ.text()})
     spectral = transport = None
+    from .observables.dynamics import zero_temperature_values, ZERO_TEMPERATURE_VALUES
+    summary.update({k: math.nan for k in ZERO_TEMPERATURE_VALUES})     # index.csv columns of every run
     sp = run.spectral
     if sp is not None:
         data = {"omega": sp.omega, "temperature": sp.temperatures}
@@ -460,6 +462,7 @@ def result_from_run(run) -> Result:
                         self_energy_imag=_spin_first(sp.self_energy.imag))
         dyn = getattr(sp, "dynamics", None)
         if dyn is not None:
+            summary.update(zero_temperature_values(sp.omega, sp.temperatures, dyn))
             attrs["quantities"] = ", ".join(dyn.quantities)
             for q, name in (("t-matrix", "t_matrix"), ("spin-susceptibility", "spin_susceptibility")):
                 if q in dyn.curves:

@@ -47,7 +47,10 @@ __all__ = ["SweepPoint", "SweepOutcome", "SUMMARY_COLUMNS", "FIXED_POINT_COLUMNS
 #: Summary attributes copied from each point file into ``index.csv``
 #: (temperatures in units of D; NaN means "not reached").
 SUMMARY_COLUMNS = ("kondo_temperature_wilson", "kondo_temperature_crossover", "wilson_ratio",
-                   "lowest_temperature_reached", "wall_seconds")
+                   "lowest_temperature_reached", "wall_seconds",
+                   # zero-temperature dynamics (runs with a T = 0 spectrum): −πρ Im T(0), ρ(0)/ρ_unitary,
+                   # the static χ from χ''(ω) ((g μ_B)²/D); NaN when the run did not compute them
+                   "t_matrix_zero", "resistivity_zero", "static_susceptibility_zero")
 
 #: Fixed-point columns of ``index.csv``: the final fixed point of the flow (label, empty when the flow
 #: ends in a crossover or the point file predates the analysis) and its phase shift δ/π (nan when none).

@@ -289,3 +289,40 @@ def test_two_channel_kondo_t_matrix_is_one_half():
     for c in (0, 1):
         for w in (0.0, 1e-8, 1e-7, 1e-6):
             assert value_at(r, "t-matrix", w, c=c) == pytest.approx(0.5, rel=0.03)
+
+
+def test_stored_dynamics_transport_and_plot_commands(kondo20, kondo15, tmp_path):
+    """/spectral/t-matrix (dimensionless) and /transport/resistivity are stored with units and read back
+    bit for bit; the T = 0 values are summary numbers (index.csv columns); `nrgsolve plot spectral
+    --quantity t-matrix` and `nrgsolve plot transport` (two files, --scale kondo) write figures; asking
+    a Kondo file for the impurity spectral function is one clear error with exit code 2."""
+    import h5py
+    from nrgsolve.cli import main
+    from nrgsolve.result import result_from_run
+    from nrgsolve.store import read_result, write_result
+    from nrgsolve.sweep import SUMMARY_COLUMNS
+
+    paths = []
+    for name, run in (("k20", kondo20), ("k15", kondo15)):
+        paths.append(write_result(result_from_run(run), tmp_path / f"{name}.h5"))
+    st = read_result(paths[0])
+    om = kondo20.spectral.omega
+    np.testing.assert_array_equal(st.spectral["t_matrix"], kondo20.spectral.dynamics.curves["t-matrix"][:, 0])
+    np.testing.assert_array_equal(st.transport["resistivity"], kondo20.alloy_transport.resistivity)
+    assert st.summary["t_matrix_zero"] == pytest.approx(float(np.interp(0, om, st.spectral["t_matrix"][0])))
+    assert st.summary["resistivity_zero"] == pytest.approx(st.summary["t_matrix_zero"])   # one component
+    assert math.isnan(st.summary["static_susceptibility_zero"])                            # not asked for
+    assert {"t_matrix_zero", "resistivity_zero", "static_susceptibility_zero"} <= set(SUMMARY_COLUMNS)
+    with h5py.File(paths[0]) as h:
+        assert h["spectral/t-matrix"].attrs["units"] == "1"
+        assert h["transport/resistivity"].attrs["units"] == "rho_unitary"
+        assert "A" not in h["spectral"]
+    out = tmp_path / "t.png"
+    assert main(["plot", "spectral", str(paths[0]), "--quantity", "t-matrix", "-o", str(out), "-q"]) == 0
+    assert out.stat().st_size > 1000
+    out = tmp_path / "rho.png"
+    assert main(["plot", "transport", *map(str, paths), "--scale", "kondo", "--normalized", "-o", str(out),
+                 "-q"]) == 0
+    assert out.stat().st_size > 1000 and out.with_suffix(".pdf").exists()
+    assert main(["plot", "spectral", str(paths[0]), "-o", str(tmp_path / "a.png"), "-q"]) == 2
+    assert not (tmp_path / "a.png").exists()

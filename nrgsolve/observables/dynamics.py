@@ -37,7 +37,14 @@ import numpy as np
 from ..engine.backward import spinor_operator, spin_vector_operator, impurity_operators
 
 __all__ = ["QUANTITY_CORRELATORS", "backward_operators", "DynamicsCurves", "dynamics_curves",
-           "t_matrix_prefactor", "static_susceptibility"]
+           "t_matrix_prefactor", "static_susceptibility", "zero_temperature_values", "ZERO_TEMPERATURE_VALUES"]
+
+#: Headline numbers of the dynamics at T = 0 (summary attributes and ``index.csv`` columns), with units.
+ZERO_TEMPERATURE_VALUES = {
+    "t_matrix_zero": "1",                  # −πρ Im T(ω = 0, T = 0), averaged over spins and channels
+    "resistivity_zero": "rho_unitary",     # ρ(T = 0)/ρ_unitary = 1/⟨1/t(0)⟩ over spins and channels
+    "static_susceptibility_zero": "(g mu_B)^2/D",   # Kramers–Kronig static limit of χ''(ω) at T = 0
+}
 
 #: The correlators (name, op1, op2) behind each quantity, per kind of model (with / without a d level).
 QUANTITY_CORRELATORS = {
@@ -185,3 +192,24 @@ def dynamics_curves(correlator_curves: dict, correlator_components: dict, quanti
     if "spin-susceptibility" in quantities and inverse_moments is not None:
         static = static_susceptibility(inverse_moments)
     return DynamicsCurves(tuple(quantities), curves, comps, static)
+
+
+def zero_temperature_values(omega, temperatures, dyn: DynamicsCurves) -> dict:
+    """The T = 0 headline numbers of :data:`ZERO_TEMPERATURE_VALUES` (NaN when the run has no T = 0
+    spectrum or not the quantity).
+
+    ρ(T = 0)/ρ_unitary is the T → 0 limit of the transport integral, 1/L̃_0 = 1/⟨1/t(0)⟩.
+    """
+    out = {k: math.nan for k in ZERO_TEMPERATURE_VALUES}
+    temps = np.asarray(temperatures, dtype=float)
+    if dyn is None or not np.any(temps == 0):
+        return out
+    i = int(np.flatnonzero(temps == 0)[0])
+    om = np.asarray(omega, dtype=float)
+    if "t-matrix" in dyn.curves:
+        t0 = np.array([float(np.interp(0.0, om, c)) for c in dyn.curves["t-matrix"][i]])
+        out["t_matrix_zero"] = float(np.mean(t0))
+        out["resistivity_zero"] = float(1.0 / np.mean(1.0 / np.maximum(t0, 1e-300)))
+    if dyn.static_susceptibility is not None:
+        out["static_susceptibility_zero"] = float(dyn.static_susceptibility[i])
+    return out
