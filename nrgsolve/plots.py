@@ -500,9 +500,11 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     sp = result.spectral
     if sp is None or name not in sp:
         from .result import dataset_name
-        raise NrgInputError(f"{_name(result)}: holds no /spectral/{dataset_name('spectral', name)}; run with a "
-                            f"[spectral] table (e.g. temperatures = [0.0], quantities = [\"{quantity}\"]) "
-                            f"in the config")
+        stored = [q for q, n in SPECTRAL_DATASETS.items() if sp is not None and n in sp]
+        raise NrgInputError(f"{_name(result)}: holds no /spectral/{dataset_name('spectral', name)}"
+                            + (f" (stored: {', '.join(stored)})" if stored else
+                               f"; run with a [spectral] table (e.g. temperatures = [0.0], "
+                               f"quantities = [\"{quantity}\"]) in the config"))
     if xscale not in ("symlog", "linear"):
         raise NrgInputError(f"xscale: got {xscale!r}; allowed: symlog, linear")
     use_improved = quantity == "impurity" and (("A_improved" in sp) if improved is None else bool(improved))

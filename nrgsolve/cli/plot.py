@@ -73,7 +73,9 @@ def cmd_plot_spectral(args) -> int:
             return plot_spectral(results[0], improved=True if args.improved else None, xscale=args.xscale,
                                  quantity=quantity)
         except NrgInputError as exc:      # the library names its arguments; here they are flags
-            raise NrgInputError(str(exc).replace("quantities = [", "spectral.quantities = [")) from None
+            msg = str(exc).replace("quantities = [", "spectral.quantities = [")
+            msg = msg.replace("(stored: ", "(stored, for --quantity: ")
+            raise NrgInputError(msg) from None
 
     return _plot(args, [args.file], f"{Path(args.file).stem}_{suffix}.png", draw)
 
