@@ -165,8 +165,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     "spectral": {
         "temperatures": Key(list, None, "D", "list of 1 to 64 numbers >= 0 and < half_bandwidth (0: ground state)",
-                            "temperatures of the impurity spectral function A(ω, T); no spectral pass when absent "
-                            "(Anderson and resonant-level models)",
+                            "temperatures of the spectra (spectral.quantities: A_d, T-matrix, χ''); no spectral "
+                            "pass when neither these nor conductance or transport temperatures are given",
                             lambda v: _number_list(v, 0.0, True), convert=_temperature_tuple),
         "broadening": Key(NUM, 0.6, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
                           lambda b: finite(b) and 0 < b <= 2),

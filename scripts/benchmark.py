@@ -13,6 +13,7 @@ Usage::
 
     python scripts/benchmark.py                      # kept 500 1000 2000 4000, su2 and abelian
     python scripts/benchmark.py --kept 1000 2000 --symmetry su2 --iterations 30
+    python scripts/benchmark.py --only-dynamics --kept 1000 --symmetry su2 abelian --iterations 30
 """
 
 from __future__ import annotations
@@ -145,6 +146,57 @@ def spectral_case(kept: int, symmetry: str, iterations: int, threads: int = 1) -
     return {"forward": ds.forward_seconds, "spectral": ds.spectral_seconds}
 
 
+def dynamics_case(kept: int, symmetry: str, iterations: int, model: str, quantities, temperatures=(0.0,),
+                  threads: int = 1) -> dict:
+    """The backward pass for a set of ``spectral.quantities``: forward and extra seconds.
+
+    ``model``: "anderson" (symmetric, U = 0.1 D, Γ = 0.01 D) or "kondo" (ρJ = 0.15); Λ = 2, one twist.
+    """
+    import numpy as np
+
+    from nrgsolve.bath import make_bath
+    from nrgsolve.chain import build_chain
+    from nrgsolve.engine import make_symmetry, EngineSettings
+    from nrgsolve.engine.iterate import Step
+    from nrgsolve.models import anderson_block, kondo_block
+    from nrgsolve.engine.backward import spectral_run
+    from nrgsolve.observables.dynamics import backward_operators
+    from nrgsolve.solve import energy_scale
+
+    Lam = 2.0
+    chain = build_chain(make_bath("flat"), Lam, 1.0, iterations + 2)
+    sym = make_symmetry(symmetry)
+    if model == "anderson":
+        V = np.sqrt(0.01 * chain.coupling_sq)
+        block, first, level = anderson_block(-0.05, 0.1, V), 0, True
+    else:
+        V = None
+        block, first, level = kondo_block(0.15 / 0.5), 1, False
+    steps = [Step(n, (float(chain.onsite[n]),), ((V if n == 0 else float(chain.hopping[n - 1])),),
+                  energy_scale(n, Lam)) for n in range(first, first + iterations + 1)]
+    ops, corr = backward_operators(sym, block, quantities, level)
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(limits=threads):
+        _, ds = spectral_run(sym.from_explicit(block), first - 1, energy_scale(first - 1, Lam), sym, steps,
+                             EngineSettings(kept_states=kept, particle_hole_symmetric=True), ops, list(temperatures),
+                             corr)
+    return {"forward": ds.forward_seconds, "spectral": ds.spectral_seconds}
+
+
+def dynamics_table(kept: int, symmetry: str, iterations: int, threads: int = 1):
+    """Print the cost of each spectral quantity relative to the forward run."""
+    cases = [("anderson", ("impurity",)), ("anderson", ("spin-susceptibility",)),
+             ("anderson", ("impurity", "t-matrix", "spin-susceptibility")),
+             ("kondo", ("t-matrix",)), ("kondo", ("spin-susceptibility",)),
+             ("kondo", ("t-matrix", "spin-susceptibility"))]
+    print(f"backward pass, T = 0, kept {kept}, {symmetry}, Λ = 2, {iterations} iterations, one twist "
+          f"(extra time of the backward pass / forward run)")
+    for model, q in cases:
+        c = dynamics_case(kept, symmetry, iterations, model, q, threads=threads)
+        print(f"  {model:9s} {' + '.join(q):45s} forward {c['forward']:6.2f} s  backward {c['spectral']:6.2f} s  "
+              f"ratio {c['spectral'] / c['forward']:.2f}", flush=True)
+
+
 def main(argv=None):
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--kept", type=int, nargs="+", default=[500, 1000, 2000, 4000])
@@ -159,8 +211,16 @@ def main(argv=None):
     p.add_argument("--no-thermodynamics", action="store_true",
                    help="skip the cost of full-density-matrix thermodynamics and of error estimates")
     p.add_argument("--only-thermodynamics", action="store_true", help="run only that part")
+    p.add_argument("--only-dynamics", action="store_true",
+                   help="only the cost of each spectral quantity (impurity, t-matrix, spin-susceptibility) "
+                        "relative to the forward run")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
+    if a.only_dynamics:
+        for kept in a.kept:
+            for sym in a.symmetry:
+                dynamics_table(kept, sym, a.iterations, a.threads)
+        return 0
     if a.case:
         kept, sym = a.case.split(":")
         print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads, not a.no_observables)))
