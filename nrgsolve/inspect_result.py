@@ -21,7 +21,7 @@ from .store import stored_fixed_points
 from .uncertainty import HEADLINE, format_with_error
 
 __all__ = ["convergence", "derived_warnings", "describe",
-           "summary_lines", "method_lines"]
+           "summary_lines", "method_lines", "dynamics_lines"]
 
 
 
@@ -107,6 +107,19 @@ def summary_lines(values: dict, errors: dict | None = None) -> list[str]:
     return out
 
 
+def dynamics_lines(summary: dict) -> list[str]:
+    """Lines of the zero-temperature dynamics that a run computed (none when it computed none)."""
+    shown = (("t_matrix_zero", "−πρ Im T(ω = 0) at T = 0", ""),
+             ("resistivity_zero", "alloy resistivity ρ(T = 0)/ρ_unitary", ""),
+             ("static_susceptibility_zero", "static χ from χ''(ω) at T = 0", " (g μ_B)²/D"))
+    out = []
+    for name, meaning, unit in shown:
+        v = _number(summary.get(name))
+        if math.isfinite(v):
+            out.append(f"{meaning}: {v:.6g}{unit}")
+    return out
+
+
 def method_lines(attrs: dict) -> list[str]:
     """Which discretization, thermodynamics and Wilson number a file used (format 1 files: the
     defaults of that version, unless the stored config says otherwise)."""
@@ -170,6 +183,7 @@ def describe(stored: Result) -> str:
              *([f"  uncertainties from: {s['error_checks']}"] if s.get("error_checks") else []),
              f"  lowest temperature reached: {_fmt(s.get('lowest_temperature_reached'), ' D')}",
              f"  wall time: {_fmt(s.get('wall_seconds'), ' s')}",
+             *("  " + ln for ln in dynamics_lines(s)),
              *_fixed_point_lines(stored),
              "",
              "convergence",

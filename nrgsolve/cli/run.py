@@ -48,9 +48,10 @@ def cmd_run(args) -> int:
     total = n_iterations(spec, bath)
     with progress_bar(total, args.quiet, f"{spec.impurity.model} ({spec.discretization.twists} twist(s))") as bar:
         result = solve(spec, progress=bar.update)
-    path = write_result(result_from_run(result), out, overwrite=args.force, name=flag, hint=OVERWRITE_HINT)
+    stored = result_from_run(result)
+    path = write_result(stored, out, overwrite=args.force, name=flag, hint=OVERWRITE_HINT)
     if not args.quiet:
-        from ..inspect_result import summary_lines
+        from ..inspect_result import summary_lines, dynamics_lines
         from ..uncertainty import headline_values
         from ..observables.kondo_scale import WILSON_NUMBER
         s, d = result.summary, spec.discretization
@@ -66,6 +67,8 @@ def cmd_run(args) -> int:
             print(f"uncertainties from two checking runs: {'; '.join(result.checks)}")
         if result.fixed_points is not None:
             print(f"fixed points: {result.fixed_points[1].text()}")
+        for line in dynamics_lines(stored.summary):
+            print(line)
         print(f"lowest temperature reached: {s.lowest_temperature_reached:.3g} D")
         print(f"wall time: {result.wall_seconds:.1f} s")
         for w in result.warnings:
