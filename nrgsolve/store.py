@@ -258,7 +258,9 @@ class atomic_path:
 
 def _encode(v):
     """A value as HDF5 takes it: str arrays as UTF-8 byte strings."""
-    a = np.asarray(v)
+    if not isinstance(v, np.ndarray):
+        return v
+    a = v
     if a.dtype.kind == "U":
         return np.array([x.encode() for x in a.ravel()], dtype="S").reshape(a.shape) if a.size else \
             np.array([b""], dtype="S")
@@ -304,6 +306,7 @@ def write_result(result, path: str | Path, overwrite: bool = False, force: bool 
     Parameters
     ----------
     result : Result
+        (or a finished run of the driver, :class:`nrgsolve.solve.RunResult`, converted first)
     path : str or Path
     overwrite : bool
         Replace an existing file (``force`` is the older name of this argument).
@@ -315,6 +318,9 @@ def write_result(result, path: str | Path, overwrite: bool = False, force: bool 
     """
     import h5py
 
+    if not isinstance(result, Result):            # a run of the driver: its Result first
+        from .result import result_from_run
+        result = result_from_run(result)
     overwrite = bool(overwrite or force)
     target = check_output_path(path, overwrite, name=name, hint=hint)
     with atomic_path(target, exclusive=not overwrite, name=name, hint=hint) as tmp:

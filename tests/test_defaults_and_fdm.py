@@ -74,7 +74,8 @@ def test_full_density_matrix_of_a_free_chain_matches_its_exact_thermodynamics():
     single-particle entropy, T·χ and C of the whole chain (free fermions, scipy) within 5e-3 k_B at
     every temperature, although the total entropy grows to ~50 k_B (Anders & Schiller 2005;
     Weichselbaum & von Delft 2007)."""
-    from nrgsolve.solve import bath_from_spec, chain_sites, energy_scale
+    from nrgsolve.chain import energy_scale
+    from nrgsolve.solve import bath_from_spec, chain_sites
     from nrgsolve.chain import build_chain
     from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
     from nrgsolve.engine.iterate import Step

@@ -536,8 +536,8 @@ def test_impurity_magnetization_is_stored(field_runs, tmp_path):
     res = by_h[1e-6]
     path = write_result(res, tmp_path / "field.h5")
     stored = read_result(path)
-    np.testing.assert_allclose(stored.thermodynamics["impurity_sz"], res.thermo.extra["impurity_sz"])
-    np.testing.assert_allclose(stored.thermodynamics["temperature"], res.thermo.temperature)
+    np.testing.assert_allclose(stored.thermo["impurity_sz"], res.thermo.extra["impurity_sz"])
+    np.testing.assert_allclose(stored.thermo["temperature"], res.thermo.temperature)
     import h5py
     with h5py.File(path, "r") as h:
         assert h["thermodynamics/impurity_sz"].attrs["units"] in ("hbar", b"hbar")
