@@ -322,17 +322,20 @@ class Result:
         return write_result(self, path, overwrite=overwrite)
 
     def same_data(self, other: "Result") -> bool:
-        """True when every array, summary number and warning equals the other's (not the provenance)."""
+        """True when every array, summary number and warning equals the other's (not the provenance and
+        not the timings)."""
         keys = [k for k in set(self.summary) | set(other.summary) if k != "wall_seconds"]
         return (self.thermo == other.thermo and self.flow == other.flow and self.diagnostics == other.diagnostics
-                and self.chain == other.chain and tuple(self.twists) == tuple(other.twists)
+                and self.chain == other.chain and len(self.twists) == len(other.twists)
+                and all(a.z == b.z and a.flow == b.flow and a.diagnostics == b.diagnostics and a.thermo == b.thermo
+                        for a, b in zip(self.twists, other.twists))
                 and self.spectral == other.spectral and self.transport == other.transport
                 and all(k in self.summary and k in other.summary
                         and _same(np.asarray(self.summary[k]), np.asarray(other.summary[k])) for k in keys)
                 and tuple(self.warnings) == tuple(other.warnings))
 
     def __eq__(self, other):
-        return (isinstance(other, Result) and self.same_data(other)
+        return (isinstance(other, Result) and self.same_data(other) and tuple(self.twists) == tuple(other.twists)
                 and _plain(self.provenance) == _plain(other.provenance)
                 and _same(np.asarray(self.summary.get("wall_seconds", np.nan)),
                           np.asarray(other.summary.get("wall_seconds", np.nan))))
