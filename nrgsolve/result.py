@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Quantity", "QUANTITIES", "quantity", "Group", "TwistData", "Result", "GROUP_PATHS", "result_from_run"]
+__all__ = ["Quantity", "QUANTITIES", "quantity", "Group", "TwistData", "Result", "GROUP_PATHS", "result_from_run", "quantities_markdown"]
 
 
 @dataclass(frozen=True)
@@ -450,3 +450,12 @@ def result_from_run(run) -> Result:
     return Result(spec=run.spec, thermo=_thermo_group(run.thermo), summary=summary, flow=Group("flow", flow),
                   diagnostics=diagnostics, chain=chain, twists=tuple(twists), spectral=spectral,
                   transport=transport, warnings=tuple(run.warnings), provenance=provenance(run.spec))
+
+
+def quantities_markdown() -> str:
+    """The table of stored quantities (markdown): Python name, dataset path, unit, meaning."""
+    lines = ["| Python | dataset | unit | meaning |", "|---|---|---|---|"]
+    for q in QUANTITIES:
+        cells = [f"`result.{q.group}.{q.name}`", f"`/{GROUP_PATHS[q.group]}/{q.dataset}`", q.unit, q.meaning]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    return "\n".join(lines)

@@ -56,7 +56,7 @@ import numpy as np
 
 from .errors import NrgInputError
 from .observables.kondo_scale import WILSON_NUMBER
-from .result import GROUP_PATHS, Group, Result, TwistData, dataset_name, python_name, unit_of
+from .result import GROUP_PATHS, QUANTITIES, Group, Result, TwistData, dataset_name, python_name, unit_of
 
 __all__ = ["FORMAT_VERSION", "write_result", "read_result", "check_output_path", "check_writable",
            "atomic_path", "stored_fixed_points", "provenance"]
@@ -296,6 +296,8 @@ def _write_group(parent, path: str, group, kind: str):
 
 def _read_group(g, kind: str) -> Group:
     data = {python_name(kind, k): _decode(g[k][()]) for k in g if hasattr(g[k], "shape")}
+    order = [q.name for q in QUANTITIES if q.group == kind]
+    data = dict(sorted(data.items(), key=lambda kv: order.index(kv[0]) if kv[0] in order else len(order)))
     return Group(kind, data, {k: _decode(v) for k, v in g.attrs.items()})
 
 

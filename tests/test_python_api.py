@@ -209,3 +209,12 @@ def test_the_python_guide_runs(tmp_path, monkeypatch):
         exec(compile(block, f"docs/python.md block {k + 1}", "exec"), namespace)
     assert (tmp_path / "kondo.h5").is_file() and (tmp_path / "compare.png").is_file()
     assert (ROOT / "README.md").read_text().count("docs/python.md") >= 1
+
+
+def test_generated_docs_are_current():
+    """docs/config.md lists the registry's models and docs/results.md the quantity table (regenerate:
+    python scripts/make_docs.py)."""
+    from nrgsolve.config import models_markdown
+    from nrgsolve.result import quantities_markdown
+    assert models_markdown() in (ROOT / "docs" / "config.md").read_text(encoding="utf-8")
+    assert quantities_markdown() in (ROOT / "docs" / "results.md").read_text(encoding="utf-8")
