@@ -437,7 +437,7 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
     """
     png = Path(png)
     if png.suffix.lower() != ".png":
-        raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
+        raise NrgInputError(f"png: got {str(png)!r}; allowed: a file name ending in .png")
     targets = [png] + ([png.with_suffix(".pdf")] if pdf else [])
     for t in targets:
         check_output_path(t, force, name="png", suffix=".png", hint="pass force=True to replace it, or choose another name")
