@@ -320,6 +320,15 @@ def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | Non
     -------
     matplotlib.figure.Figure
 
+    Examples
+    --------
+    >>> import nrgsolve
+    >>> res = nrgsolve.run({"impurity": {"model": "kondo", "exchange": 0.3},
+    ...                     "run": {"kept_states": 60, "lowest_temperature": 1e-4}, "discretization": {"twists": 1}})
+    >>> fig = plot_thermo([res], "entropy")
+    >>> fig.axes[0].get_xscale()
+    'log'
+
     Raises
     ------
     NrgInputError

@@ -218,3 +218,18 @@ def test_generated_docs_are_current():
     from nrgsolve.result import quantities_markdown
     assert models_markdown() in (ROOT / "docs" / "config.md").read_text(encoding="utf-8")
     assert quantities_markdown() in (ROOT / "docs" / "results.md").read_text(encoding="utf-8")
+
+
+def test_the_examples_in_the_public_docstrings_run():
+    """The Examples sections of the public interface are doctests that pass."""
+    import doctest
+    import matplotlib
+    matplotlib.use("Agg")
+    import nrgsolve.api
+    import nrgsolve.chain
+    import nrgsolve.config
+    import nrgsolve.plots
+    import nrgsolve.result
+    for module in (nrgsolve.api, nrgsolve.result, nrgsolve.config, nrgsolve.chain, nrgsolve.plots):
+        failed, tried = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
+        assert failed == 0 and tried >= 2, module.__name__
