@@ -568,7 +568,7 @@ def _config_text(chosen: dict) -> str:
 
 
 @pytest.mark.slow
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(configs())
 def test_random_configs_give_a_complete_file_or_one_line_and_nothing(tmp_path_factory, chosen):
     """Exit 0 with a complete, readable file, or exit 2 with one line and nothing written; never anything else."""
