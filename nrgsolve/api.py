@@ -127,6 +127,15 @@ def load(path) -> Result:
     ------
     NrgInputError
         Missing file, or not an nrgsolve result file.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> res = run({"impurity": {"model": "resonant-level", "hybridization": 0.05},
+    ...            "run": {"kept_states": 60, "lowest_temperature": 1e-3}, "discretization": {"twists": 1}})
+    >>> path = res.save(pathlib.Path(tempfile.mkdtemp()) / "level.h5")
+    >>> load(path) == res
+    True
     """
     from .store import read_result
     return read_result(Path(path))

@@ -28,7 +28,7 @@ from .keys import (Key, NUM, finite, MAX_ENERGY, MAX_EXPONENT, MIN_LAMBDA,
                    MIN_TEMPERATURE_RATIO, MAX_FLOW_LEVELS)
 
 __all__ = [
-    "SCHEMA", "RunSpec", "ImpuritySpec", "BathSpec", "DiscretizationSpec", "RunSettings",
+    "SCHEMA", "models_markdown", "RunSpec", "ImpuritySpec", "BathSpec", "DiscretizationSpec", "RunSettings",
     "OutputSpec", "SweepSpec", "SpectralSpec", "parse_config", "load_config", "config_reference_markdown",
     "MODELS",
 ]
@@ -583,6 +583,8 @@ def _type_name(kind):
         return "a list of numbers"
     if kind == (list, dict):
         return "a list of numbers or a table { start, stop, points }"
+    if kind == (str, dict):
+        return "a file path or a table { energies = [...], values = [...] }"
     return "a string"
 
 
@@ -921,6 +923,21 @@ def resolve_table_path(spec: RunSpec) -> str | None:
     if not t.is_absolute() and spec.config_path and not spec.config_path.startswith("<"):
         t = Path(spec.config_path).parent / t
     return str(t)
+
+
+def models_markdown() -> str:
+    """The table of impurity models (markdown), generated from the model registry."""
+    from .models import MODELS as registry
+    lines = ["| model | Hamiltonian | parameters | channels | impurity level | Kondo scale looked for |",
+             "|---|---|---|---|---|---|"]
+    for name in registry:
+        m = registry[name]
+        ch = sorted({m.channels(ImpuritySpec(model=name))})
+        kondo = "yes" if m.kondo_scale(ImpuritySpec(model=name)) else "no"
+        cells = [f"`{name}`", m.summary, ", ".join(f"`{k}`" for k in m.parameters), str(ch[0]),
+                 "yes" if m.impurity_level else "no", kondo]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    return "\n".join(lines)
 
 
 def config_reference_markdown() -> str:

@@ -59,18 +59,19 @@ def run_warnings(spec, max_discarded_weight: float, temperature, T_chi, kondo_te
     if T.size == 0:
         out.append(f"lowest temperature not reached: no temperature stored (requested "
                    f"{spec.run.lowest_temperature:.3g} D)")
-    elif spec.run.thermodynamics == "full-density-matrix":
-        if chain_sites is not None and len(chain_sites):
+    else:
+        fdm = spec.run.thermodynamics == "full-density-matrix"
+        want = min(spec.run.temperatures) if (fdm and spec.run.temperatures) else spec.run.lowest_temperature
+        low = float(T[0])
+        if low > LOW_TEMPERATURE_SLACK * want:
+            out.append(f"lowest temperature not reached: {low:.3g} D > requested {want:.3g} D")
+        if fdm and chain_sites is not None and len(chain_sites):
             last = max(energy_scale(n - 1, d.Lambda, z, spec.bath.half_bandwidth, d.scheme)
                        for n, z in zip(chain_sites, twists))
-            low = float(T[0])
             if last > low / FDM_REACH_WARNING:
                 out.append(f"the chain ends at ω_N = {last:.3g} D, not far enough below the lowest temperature "
                            f"{low:.3g} D (want ω_N ≤ T/{FDM_REACH_WARNING:g}): the lowest temperatures see the "
                            f"finite chain")
-    elif float(T[0]) > LOW_TEMPERATURE_SLACK * spec.run.lowest_temperature:
-        out.append(f"lowest temperature not reached: {float(T[0]):.3g} D > requested "
-                   f"{spec.run.lowest_temperature:.3g} D")
     tk = math.nan if kondo_temperature_crossover is None else float(kondo_temperature_crossover)
     imp = spec.impurity
     if imp.declaration.kondo_scale(imp) and not math.isfinite(tk):

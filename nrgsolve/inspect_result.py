@@ -192,6 +192,11 @@ def describe(stored: Result) -> str:
              f"  twists: {len(conv['z'])}"]
     for z, n in zip(conv["z"], conv["iterations"]):
         lines.append(f"    z = {z:.6g}: {n} iterations")
+    lines += ["", "stored quantities (units from nrgsolve.result.QUANTITIES)"]
+    for group in ("thermo", "spectral", "transport"):
+        g = getattr(stored, group)
+        if g is not None and len(g):
+            lines.append(f"  {group}: " + ", ".join(f"{k} [{u}]" for k, u in g.units.items()))
     lines += ["", "stored warnings"]
     lines += [f"  {w}" for w in stored.warnings] or ["  none"]
     lines += ["", "derived warnings"]

@@ -321,6 +321,15 @@ def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | Non
     -------
     matplotlib.figure.Figure
 
+    Examples
+    --------
+    >>> import nrgsolve
+    >>> res = nrgsolve.run({"impurity": {"model": "kondo", "exchange": 0.3},
+    ...                     "run": {"kept_states": 60, "lowest_temperature": 1e-4}, "discretization": {"twists": 1}})
+    >>> fig = plot_thermo([res], "entropy")
+    >>> fig.axes[0].get_xscale()
+    'log'
+
     Raises
     ------
     NrgInputError
@@ -438,7 +447,7 @@ def save_figure(fig, png: str | Path, force: bool = False, pdf: bool = True, dpi
     """
     png = Path(png)
     if png.suffix.lower() != ".png":
-        raise NrgInputError(f"--output: got {str(png)!r}; allowed: a file name ending in .png")
+        raise NrgInputError(f"png: got {str(png)!r}; allowed: a file name ending in .png")
     targets = [png] + ([png.with_suffix(".pdf")] if pdf else [])
     for t in targets:
         check_output_path(t, force, name="png", suffix=".png", hint="pass force=True to replace it, or choose another name")

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Quantity", "QUANTITIES", "quantity", "Group", "TwistData", "Result", "GROUP_PATHS", "result_from_run"]
+__all__ = ["Quantity", "QUANTITIES", "quantity", "Group", "TwistData", "Result", "GROUP_PATHS", "result_from_run", "quantities_markdown"]
 
 
 @dataclass(frozen=True)
@@ -337,17 +337,20 @@ class Result:
         return write_result(self, path, overwrite=overwrite)
 
     def same_data(self, other: "Result") -> bool:
-        """True when every array, summary number and warning equals the other's (not the provenance)."""
+        """True when every array, summary number and warning equals the other's (not the provenance and
+        not the timings)."""
         keys = [k for k in set(self.summary) | set(other.summary) if k != "wall_seconds"]
         return (self.thermo == other.thermo and self.flow == other.flow and self.diagnostics == other.diagnostics
-                and self.chain == other.chain and tuple(self.twists) == tuple(other.twists)
+                and self.chain == other.chain and len(self.twists) == len(other.twists)
+                and all(a.z == b.z and a.flow == b.flow and a.diagnostics == b.diagnostics and a.thermo == b.thermo
+                        for a, b in zip(self.twists, other.twists))
                 and self.spectral == other.spectral and self.transport == other.transport
                 and all(k in self.summary and k in other.summary
                         and _same(np.asarray(self.summary[k]), np.asarray(other.summary[k])) for k in keys)
                 and tuple(self.warnings) == tuple(other.warnings))
 
     def __eq__(self, other):
-        return (isinstance(other, Result) and self.same_data(other)
+        return (isinstance(other, Result) and self.same_data(other) and tuple(self.twists) == tuple(other.twists)
                 and _plain(self.provenance) == _plain(other.provenance)
                 and _same(np.asarray(self.summary.get("wall_seconds", np.nan)),
                           np.asarray(other.summary.get("wall_seconds", np.nan))))
@@ -484,3 +487,12 @@ def result_from_run(run) -> Result:
     return Result(spec=run.spec, thermo=_thermo_group(run.thermo), summary=summary, flow=Group("flow", flow),
                   diagnostics=diagnostics, chain=chain, twists=tuple(twists), spectral=spectral,
                   transport=transport, warnings=tuple(run.warnings), provenance=provenance(run.spec))
+
+
+def quantities_markdown() -> str:
+    """The table of stored quantities (markdown): Python name, dataset path, unit, meaning."""
+    lines = ["| Python | dataset | unit | meaning |", "|---|---|---|---|"]
+    for q in QUANTITIES:
+        cells = [f"`result.{q.group}.{q.name}`", f"`/{GROUP_PATHS[q.group]}/{q.dataset}`", q.unit, q.meaning]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    return "\n".join(lines)

@@ -56,7 +56,7 @@ import numpy as np
 
 from .errors import NrgInputError
 from .observables.kondo_scale import WILSON_NUMBER
-from .result import GROUP_PATHS, Group, Result, TwistData, dataset_name, python_name, unit_of
+from .result import GROUP_PATHS, QUANTITIES, Group, Result, TwistData, dataset_name, python_name, unit_of
 
 __all__ = ["FORMAT_VERSION", "write_result", "read_result", "check_output_path", "check_writable",
            "atomic_path", "stored_fixed_points", "provenance"]
@@ -258,7 +258,9 @@ class atomic_path:
 
 def _encode(v):
     """A value as HDF5 takes it: str arrays as UTF-8 byte strings."""
-    a = np.asarray(v)
+    if not isinstance(v, np.ndarray):
+        return v
+    a = v
     if a.dtype.kind == "U":
         return np.array([x.encode() for x in a.ravel()], dtype="S").reshape(a.shape) if a.size else \
             np.array([b""], dtype="S")
@@ -294,6 +296,8 @@ def _write_group(parent, path: str, group, kind: str):
 
 def _read_group(g, kind: str) -> Group:
     data = {python_name(kind, k): _decode(g[k][()]) for k in g if hasattr(g[k], "shape")}
+    order = [q.name for q in QUANTITIES if q.group == kind]
+    data = dict(sorted(data.items(), key=lambda kv: order.index(kv[0]) if kv[0] in order else len(order)))
     return Group(kind, data, {k: _decode(v) for k, v in g.attrs.items()})
 
 
@@ -304,6 +308,7 @@ def write_result(result, path: str | Path, overwrite: bool = False, force: bool 
     Parameters
     ----------
     result : Result
+        (or a finished run of the driver, :class:`nrgsolve.solve.RunResult`, converted first)
     path : str or Path
     overwrite : bool
         Replace an existing file (``force`` is the older name of this argument).
@@ -315,6 +320,9 @@ def write_result(result, path: str | Path, overwrite: bool = False, force: bool 
     """
     import h5py
 
+    if not isinstance(result, Result):            # a run of the driver: its Result first
+        from .result import result_from_run
+        result = result_from_run(result)
     overwrite = bool(overwrite or force)
     target = check_output_path(path, overwrite, name=name, hint=hint)
     with atomic_path(target, exclusive=not overwrite, name=name, hint=hint) as tmp:

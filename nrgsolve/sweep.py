@@ -222,7 +222,7 @@ def _import_distributed():
     try:
         import distributed
     except ImportError:
-        raise NrgInputError("--scheduler: dask.distributed is not installed; install the optional extra "
+        raise NrgInputError("scheduler: dask.distributed is not installed; install the optional extra "
                             "with: pip install 'nrgsolve[cluster]'") from None
     return distributed
 
@@ -239,12 +239,12 @@ def _connect(scheduler: str, connect_timeout: float):
         get_backend(scheme)
         get_address_host(scheduler)
     except (ValueError, TypeError) as exc:
-        raise NrgInputError(f"--scheduler: got {scheduler!r} ({exc}); {hint}") from None
+        raise NrgInputError(f"scheduler: got {scheduler!r} ({exc}); {hint}") from None
     try:
         return distributed.Client(scheduler, timeout=connect_timeout, set_as_default=False)
     except (OSError, TimeoutError, ValueError, TypeError) as exc:
         msg = str(exc).splitlines()[0] if str(exc) else exc.__class__.__name__
-        raise NrgInputError(f"--scheduler: cannot connect to {scheduler!r} ({msg}); {hint}") from None
+        raise NrgInputError(f"scheduler: cannot connect to {scheduler!r} ({msg}); {hint}") from None
 
 
 def _run_cluster(tasks, client, scheduler: str, done: Callable[[int], None]):
@@ -362,12 +362,12 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
         A worker died; finished points are kept for the next (resumed) run.
     """
     if not isinstance(jobs, int) or isinstance(jobs, bool) or jobs < 1:
-        raise NrgInputError(f"--jobs: got {jobs!r}; allowed: an integer >= 1")
+        raise NrgInputError(f"jobs: got {jobs!r}; allowed: an integer >= 1")
     points = sweep_points(spec)
     bath_from_spec(points[0].spec)          # a bad table file fails here, before any file is made
     folder = Path(folder).resolve()
     if folder.exists() and not folder.is_dir():
-        raise NrgInputError(f"--output-folder: {folder} exists and is not a folder")
+        raise NrgInputError(f"folder: {folder} exists and is not a folder")
     # which points are already done (and whether they are ours)
     existing, todo = {}, []
     for p in points:
@@ -380,7 +380,7 @@ def run_sweep(spec: RunSpec, folder: str | Path, jobs: int = 1, scheduler: str |
                 stored = None           # unreadable: recompute
             if stored is not None and not _stored_matches(stored, p):
                 raise NrgInputError(f"{path}: holds a different configuration than point {p.number} of "
-                                    f"{spec.config_path}; use --force to recompute or choose another --output-folder")
+                                    f"{spec.config_path}; pass force=True to recompute them, or choose another folder")
         if stored is not None:
             existing[p.number] = stored
         else:
@@ -397,7 +397,7 @@ def _run_points(spec, points, existing, todo, folder, jobs, scheduler, progress,
         try:
             folder.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
-            raise NrgInputError(f"--output-folder: cannot create {folder} ({exc.strerror})") from None
+            raise NrgInputError(f"folder: cannot create {folder} ({exc.strerror})") from None
         remove_stale_parts(folder)
         if progress is not None:
             for _ in existing:

@@ -36,7 +36,7 @@ def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: in
     from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
     from nrgsolve.engine.iterate import Step
     from nrgsolve.models import anderson_block
-    from nrgsolve.solve import energy_scale
+    from nrgsolve.chain import energy_scale
 
     Lam = 2.0
     chain = build_chain(make_bath("flat"), Lam, 1.0, iterations + 1)
@@ -129,7 +129,7 @@ def spectral_case(kept: int, symmetry: str, iterations: int, threads: int = 1) -
     from nrgsolve.engine.iterate import Step
     from nrgsolve.models import anderson_block
     from nrgsolve.engine.backward import spectral_run, impurity_operators
-    from nrgsolve.solve import energy_scale
+    from nrgsolve.chain import energy_scale
 
     Lam = 2.0
     chain = build_chain(make_bath("flat"), Lam, 1.0, iterations + 1)
@@ -161,7 +161,7 @@ def dynamics_case(kept: int, symmetry: str, iterations: int, model: str, quantit
     from nrgsolve.models import anderson_block, kondo_block
     from nrgsolve.engine.backward import spectral_run
     from nrgsolve.observables.dynamics import backward_operators
-    from nrgsolve.solve import energy_scale
+    from nrgsolve.chain import energy_scale
 
     Lam = 2.0
     chain = build_chain(make_bath("flat"), Lam, 1.0, iterations + 2)

@@ -43,10 +43,10 @@ def main(argv=None) -> int:
         path = data / (Path(args.config).stem + ".h5")
         write_result(solve(spec), path, force=True)
         stored = read_result(path)
-    th = stored.thermodynamics
+    th = stored.thermo
     T = np.asarray(th["temperature"], float)
-    curves = {"T_chi": np.asarray(th["T_chi_imp"]), "entropy": np.asarray(th["S_imp"]),
-              "heat": np.asarray(th["C_imp"])}
+    curves = {"T_chi": np.asarray(th["T_chi"]), "entropy": np.asarray(th["entropy"]),
+              "heat": np.asarray(th["heat"])}
     chi0 = kondo_summary(T, curves["T_chi"], curves["heat"]).chi_zero
     if not chi0:
         print("the run does not reach χ_imp(0); lower run.lowest_temperature", file=sys.stderr)

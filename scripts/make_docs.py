@@ -1,4 +1,5 @@
-"""Regenerate docs/config.md from the config schema (nrgsolve.config.SCHEMA).
+"""Regenerate docs/config.md from the config schema (nrgsolve.config.SCHEMA) and the model registry, and the
+quantity table of docs/results.md from nrgsolve.result.QUANTITIES.
 
     python scripts/make_docs.py
 
@@ -14,7 +15,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from nrgsolve.config import config_reference_markdown  # noqa: E402
+from nrgsolve.config import config_reference_markdown, models_markdown  # noqa: E402
+from nrgsolve.result import quantities_markdown  # noqa: E402
 
 INTRO = """# Config reference
 
@@ -69,7 +71,9 @@ that point alone.
 
 def render() -> str:
     """The full text of docs/config.md."""
-    return INTRO + "## Keys\n\n" + config_reference_markdown() + "\n" + SWEEP
+    return (INTRO + "## Models\n\nDeclared in `nrgsolve/models/` (one file per model); a key of `[impurity]` "
+            "that the model does not list is refused.\n\n" + models_markdown() + "\n\n## Keys\n\n"
+            + config_reference_markdown() + "\n" + SWEEP)
 
 
 START, END = "<!-- config-reference-start -->", "<!-- config-reference-end -->"
@@ -77,8 +81,15 @@ START, END = "<!-- config-reference-start -->", "<!-- config-reference-end -->"
 
 def render_readme(text: str) -> str:
     """README text with the config table between the reference markers replaced."""
-    a, b = text.index(START) + len(START), text.index(END)
-    return text[:a] + "\n" + config_reference_markdown() + "\n" + text[b:]
+    return replace_between(text, START, END, config_reference_markdown())
+
+
+Q_START, Q_END = "<!-- quantities-start -->", "<!-- quantities-end -->"
+
+
+def replace_between(text: str, start: str, end: str, body: str) -> str:
+    a, b = text.index(start) + len(start), text.index(end)
+    return text[:a] + "\n" + body + "\n" + text[b:]
 
 
 def main() -> int:
@@ -88,6 +99,10 @@ def main() -> int:
     readme = ROOT / "README.md"
     readme.write_text(render_readme(readme.read_text(encoding="utf-8")), encoding="utf-8")
     print(f"updated the config table in {readme}")
+    results = ROOT / "docs" / "results.md"
+    results.write_text(replace_between(results.read_text(encoding="utf-8"), Q_START, Q_END, quantities_markdown()),
+                       encoding="utf-8")
+    print(f"updated the quantity table in {results}")
     return 0
 
 

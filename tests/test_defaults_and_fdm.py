@@ -74,18 +74,18 @@ def test_full_density_matrix_of_a_free_chain_matches_its_exact_thermodynamics():
     single-particle entropy, T·χ and C of the whole chain (free fermions, scipy) within 5e-3 k_B at
     every temperature, although the total entropy grows to ~50 k_B (Anders & Schiller 2005;
     Weichselbaum & von Delft 2007)."""
-    from nrgsolve.solve import bath_from_spec, chain_sites, energy_scale
+    from nrgsolve.chain import energy_scale
+    from nrgsolve.solve import bath_from_spec, chain_sites
     from nrgsolve.chain import build_chain
     from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
-    from nrgsolve.engine.iterate import Step
+    from nrgsolve.engine.iterate import chain_steps
     from nrgsolve.models import bare_chain_block
     spec = parse_config("[run]\nlowest_temperature = 1e-7\n")
     Lam = spec.discretization.Lambda
     n = chain_sites(spec, 1.0, 1.0)
     ch = build_chain(bath_from_spec(spec), Lam, 1.0, n, scheme="adaptive")
     sym = make_symmetry("su2", 1)
-    steps = [Step(k, (float(ch.onsite[k]),), (float(ch.hopping[k - 1]),), energy_scale(k, Lam, 1.0, 1.0, "adaptive"))
-             for k in range(1, n)]
+    steps = chain_steps(ch.onsite, ch.hopping, lambda k: energy_scale(k, Lam, 1.0, 1.0, "adaptive"), 1, n)
     res = run_chain(sym.from_explicit(bare_chain_block(float(ch.onsite[0]), 1)), 0,
                     energy_scale(0, Lam, 1.0, 1.0, "adaptive"), sym, steps, EngineSettings(kept_states=1000))
     N = res.records[-1].index

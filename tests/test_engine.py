@@ -218,7 +218,7 @@ def test_long_odd_chain_keeps_the_symmetric_ground_multiplet_degenerate():
     from nrgsolve.engine import make_symmetry, run_chain, EngineSettings
     from nrgsolve.engine.iterate import Step
     from nrgsolve.models import anderson_block
-    from nrgsolve.solve import energy_scale
+    from nrgsolve.chain import energy_scale
     Lam, N = 2.5, 120
     c = build_chain(make_bath("flat"), Lam, 1.0, N + 1)
     V = np.sqrt(0.01 * c.coupling_sq)

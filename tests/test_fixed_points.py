@@ -13,7 +13,7 @@ import pytest
 from nrgsolve.config import parse_config
 from nrgsolve.observables.fixed_points import (chain_multiplets, fixed_point_sequence, format_sequence,
                                                single_particle_flow)
-from nrgsolve.solve import energy_scale, solve
+from nrgsolve.solve import solve
 
 
 def _run(text):

@@ -18,7 +18,7 @@ from scipy import integrate
 
 from nrgsolve.config import load_config, parse_config
 from nrgsolve.engine import FockSpace, EngineSettings, make_symmetry, run_chain
-from nrgsolve.engine.iterate import Step
+from nrgsolve.engine.iterate import chain_steps
 from nrgsolve.models import two_channel_kondo_block
 from nrgsolve.solve import solve
 from nrgsolve.store import read_result, write_result
@@ -133,7 +133,7 @@ def engine_two_channel(J1, J2, onsite, hopping, symmetry, kept=10 ** 6):
     sym = make_symmetry(symmetry, 2)
     assert onsite[0, 0] == onsite[0, 1]
     blk = two_channel_kondo_block(J1, J2, 1, 0.0, float(onsite[0, 0]))
-    steps = [Step(n, tuple(onsite[n]), tuple(hopping[n - 1]), omega(n, 2.0)) for n in range(1, n_sites)]
+    steps = chain_steps(onsite, hopping, lambda n: omega(n, 2.0), 1, n_sites, channels=2)
     return run_chain(sym.from_explicit(blk), 0, omega(0, 2.0), sym, steps, EngineSettings(kept_states=kept))
 
 
@@ -187,7 +187,7 @@ def test_two_channel_su2_and_abelian_agree_with_truncation():
     for symmetry in ("su2", "abelian"):
         sym = make_symmetry(symmetry, 2)
         hop = wilson_hopping(np.arange(8), 2.0)
-        steps = [Step(n, (0.0, 0.0), (hop[n - 1],) * 2, omega(n, 2.0)) for n in range(1, 9)]
+        steps = chain_steps(np.zeros(9), hop, lambda n: omega(n, 2.0), 1, 9, channels=2)
         runs[symmetry] = run_chain(sym.from_explicit(two_channel_kondo_block(0.4, 0.4)), 0, omega(0, 2.0),
                                    sym, steps, EngineSettings(kept_states=300))
     assert_same_levels(runs["su2"], runs["abelian"], 200)
@@ -536,8 +536,8 @@ def test_impurity_magnetization_is_stored(field_runs, tmp_path):
     res = by_h[1e-6]
     path = write_result(res, tmp_path / "field.h5")
     stored = read_result(path)
-    np.testing.assert_allclose(stored.thermodynamics["impurity_sz"], res.thermo.extra["impurity_sz"])
-    np.testing.assert_allclose(stored.thermodynamics["temperature"], res.thermo.temperature)
+    np.testing.assert_allclose(stored.thermo["impurity_sz"], res.thermo.extra["impurity_sz"])
+    np.testing.assert_allclose(stored.thermo["temperature"], res.thermo.temperature)
     import h5py
     with h5py.File(path, "r") as h:
         assert h["thermodynamics/impurity_sz"].attrs["units"] in ("hbar", b"hbar")

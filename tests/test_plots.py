@@ -84,7 +84,7 @@ def test_flow_draws_into_given_axes(stored):
     fig, axes = new_figure(1, 2)
     out = plot_flow(stored["k15"], levels=3, ax=axes)
     assert out is fig and all(len(a.get_lines()) == 3 for a in axes)
-    with pytest.raises(NrgInputError, match="--levels"):
+    with pytest.raises(NrgInputError, match="levels: got 0"):
         plot_flow(stored["k15"], levels=0)
 
 
@@ -95,8 +95,8 @@ def test_thermo_draws_the_stored_curves(stored):
     assert ax.get_xscale() == "log"
     assert "k_B" in ax.get_ylabel() and "D" in ax.get_xlabel()
     for line, r in zip(ax.get_lines(), runs):
-        np.testing.assert_allclose(line.get_xdata(), r.thermodynamics["temperature"])
-        np.testing.assert_allclose(line.get_ydata(), r.thermodynamics["S_imp"])
+        np.testing.assert_allclose(line.get_xdata(), r.thermo["temperature"])
+        np.testing.assert_allclose(line.get_ydata(), r.thermo["entropy"])
 
 
 def test_thermo_on_the_kondo_scale_divides_by_the_stored_kondo_temperature(stored):
@@ -106,7 +106,7 @@ def test_thermo_on_the_kondo_scale_divides_by_the_stored_kondo_temperature(store
     assert "T_K" in ax.get_xlabel()
     for line, r in zip(ax.get_lines(), runs):
         tk = r.summary["kondo_temperature_crossover"]
-        np.testing.assert_allclose(np.asarray(line.get_xdata()) * tk, r.thermodynamics["temperature"])
+        np.testing.assert_allclose(np.asarray(line.get_xdata()) * tk, r.thermo["temperature"])
         # by the definition of the crossover scale, T·χ passes 0.07 at T/T_K = 1
         x, y = np.asarray(line.get_xdata()), np.asarray(line.get_ydata())
         assert np.interp(0.0, np.log(x), y) == pytest.approx(0.07, abs=2e-3)
@@ -116,7 +116,7 @@ def test_thermo_on_the_kondo_scale_needs_a_kondo_temperature(stored):
     assert math.isnan(stored["ferro"].summary["kondo_temperature_crossover"])
     with pytest.raises(NrgInputError, match="ferro.h5.*no Kondo temperature"):
         plot_thermo([stored["k20"], stored["ferro"]], scale="kondo")
-    with pytest.raises(NrgInputError, match="--quantity"):
+    with pytest.raises(NrgInputError, match="quantity: got"):
         plot_thermo([stored["k20"]], quantity="susceptibility")
 
 
@@ -182,7 +182,7 @@ lowest_temperature = 1e-5
     fig = plot_thermo([stored], quantity="magnetization")
     y = fig.axes[0].lines[0].get_ydata()
     assert len(y) > 10 and y.min() > 0 and y.max() < 0.5
-    np.testing.assert_allclose(y, stored.thermodynamics["impurity_sz"][np.isfinite(stored.thermodynamics["impurity_sz"])])
+    np.testing.assert_allclose(y, stored.thermo["impurity_sz"][np.isfinite(stored.thermo["impurity_sz"])])
     no_field = read_result(write_result(solve(parse_config(text.replace('symmetry = "abelian"\n', '').replace(
         "field = 0.001\n", "")), workers=1), tmp_path / "plain.h5"))
     with pytest.raises(NrgInputError, match="impurity_sz"):

@@ -12,7 +12,8 @@ import h5py
 import pytest
 from hypothesis import assume, given, settings, strategies as st
 
-from nrgsolve.config import MODEL_KEYS, MODELS, parse_config
+from nrgsolve.config import MODELS, parse_config
+from nrgsolve.models import MODELS as REGISTRY
 from nrgsolve.errors import ConfigError, NrgInputError
 from nrgsolve.store import read_result
 from nrgsolve.sweep import (FIXED_POINT_COLUMNS, SUMMARY_COLUMNS, default_folder, read_index, run_sweep,
@@ -119,7 +120,7 @@ valid_values = st.fixed_dictionaries({
 @settings(max_examples=200, deadline=None)
 @given(valid_values)
 def test_resolved_point_config_parses_back_to_the_same_parameters(v):
-    uses = MODEL_KEYS[v["model"]]          # a key the model does not use is an error
+    uses = REGISTRY[v["model"]].parameters          # a key the model does not use is an error
     imp = "".join(f"{k} = {v[k]!r}\n" for k in ("exchange", "interaction", "level") if k in uses and v[k] is not None)
     text = (f"[impurity]\nmodel = \"{v['model']}\"\n{imp}"
             f"[discretization]\nLambda = {v['Lambda']!r}\ntwists = {v['twists']}\n"
@@ -148,7 +149,7 @@ def test_sweep_writes_one_file_per_point_and_an_index(tmp_path):
     for i, row in enumerate(rows):
         assert int(row["point"]) == i and row["file"] == f"point_000{i}.h5"
         stored = read_result(folder / row["file"])
-        spec = parse_config(stored.attrs["config_text"], "grid.toml")
+        spec = parse_config(stored.provenance["config_text"], "grid.toml")
         # the point file holds its own resolved config
         assert spec.impurity.exchange == float(row["impurity.exchange"])
         assert spec.discretization.twists == int(row["discretization.twists"])

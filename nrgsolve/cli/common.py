@@ -10,7 +10,7 @@ from pathlib import Path
 from ..errors import NrgInputError
 
 __all__ = ["Parser", "fail", "progress_bar", "positive_int", "image_options", "check_png", "reason",
-           "files_named", "OVERWRITE_HINT"]
+           "files_named", "OVERWRITE_HINT", "as_flags"]
 
 #: What the command line says about an existing output file.
 OVERWRITE_HINT = "use --force to overwrite or choose another --output"
@@ -54,6 +54,18 @@ def image_options(parser, default_name: str):
                         help=f"image file (default: {default_name} here; a PDF is written beside it)")
     parser.add_argument("--force", action="store_true", help="overwrite existing images")
     parser.add_argument("--quiet", "-q", action="store_true", help="print nothing")
+
+
+def as_flags(exc: NrgInputError, flags: dict, phrases: dict | None = None) -> NrgInputError:
+    """The library's message in the command line's words: a leading ``argument:`` becomes its flag,
+    and phrases such as "pass force=True" become "use --force"."""
+    msg = str(exc)
+    for name, flag in flags.items():
+        if msg.startswith(name + ":"):
+            msg = flag + msg[len(name):]
+    for old, new in (phrases or {}).items():
+        msg = msg.replace(old, new)
+    return NrgInputError(msg)
 
 
 def files_named(files) -> str:

@@ -115,9 +115,10 @@ def add_command(sub) -> None:
     t = kinds.add_parser("thermo", help="impurity thermodynamics of one or more runs on a log-T axis")
     t.add_argument("files", nargs="+", metavar="FILE", help="result files (.h5)")
     from ..plots import THERMO_QUANTITIES
+    from ..result import quantity
     t.add_argument("--quantity", choices=tuple(THERMO_QUANTITIES), default="T_chi",
-                   help="T·χ_imp, S_imp, C_imp, or the impurity averages M = ⟨S_z⟩ (abelian runs), ⟨n_d⟩, "
-                        "⟨n_d↑n_d↓⟩ (Anderson runs) (default T_chi)")
+                   help="; ".join(f"{k}: {quantity('thermo', v).meaning} [{quantity('thermo', v).unit}]"
+                                  for k, v in THERMO_QUANTITIES.items()) + " (default T_chi)")
     t.add_argument("--scale", choices=("kondo",), help="plot against T/T_K (crossover Kondo temperature)")
     t.add_argument("--exact", action="store_true",
                    help="also draw the exact Bethe-ansatz curve of the runs' Kondo model (needs --scale kondo)")

@@ -6,7 +6,7 @@ import sys
 from pathlib import Path
 
 from ..errors import NrgInputError
-from .common import positive_int, progress_bar
+from .common import as_flags, positive_int, progress_bar
 
 __all__ = ["add_command", "cmd_sweep"]
 
@@ -35,6 +35,10 @@ def cmd_sweep(args) -> int:
         try:
             out = run_sweep(spec, folder, jobs=args.jobs, scheduler=args.scheduler, force=args.force,
                             progress=bar.update)
+        except NrgInputError as exc:      # the library names its arguments; here they are flags
+            raise as_flags(exc, {"scheduler": "--scheduler", "jobs": "--jobs", "folder": "--output-folder"},
+                           {"pass force=True to recompute them, or choose another folder":
+                            "use --force to recompute or choose another --output-folder"}) from None
         except (WorkerLost, KeyboardInterrupt) as exc:
             if folder.is_dir():
                 remove_stale_parts(folder)
