@@ -326,3 +326,52 @@ def test_stored_dynamics_transport_and_plot_commands(kondo20, kondo15, tmp_path)
     assert out.stat().st_size > 1000 and out.with_suffix(".pdf").exists()
     assert main(["plot", "spectral", str(paths[0]), "-o", str(tmp_path / "a.png"), "-q"]) == 2
     assert not (tmp_path / "a.png").exists()
+
+
+@pytest.mark.parametrize("symmetry", ["su2", "abelian"])
+def test_two_channel_composite_operators_match_dense_diagonalization(symmetry):
+    """Two-channel Kondo impurity (J_1 ≠ J_2) on sites 0…1 of both channels: the T-matrix operator of
+    each channel, O_kσ = [f_0kσ, H_imp], has the full-density-matrix weights of dense exact
+    diagonalization (built here), component by component (common practice, no source)."""
+    from nrgsolve.models import two_channel_kondo_block
+    J1, J2, Lam, N = 0.4, 0.3, 2.0, 1
+    hop = wilson_hopping(np.arange(N), Lam)
+    modes = [(k, s) for _n in range(N + 1) for k in range(2) for s in (1, -1)]
+    sp = FockSpace(modes, local_spin_twice=1, n_channels=2)
+    c = [sp.annihilator(j) for j in range(len(modes))]
+
+    def mode(n, k, s):
+        return 4 * n + 2 * k + (0 if s > 0 else 1)
+
+    def spin_dot(k):
+        u, d = c[mode(0, k, 1)], c[mode(0, k, -1)]
+        return (sp.local_sz @ (0.5 * (u.T @ u - d.T @ d))
+                + 0.5 * (sp.local_splus @ (d.T @ u) + sp.local_splus.T @ (u.T @ d)))
+
+    H_imp = J1 * spin_dot(0) + J2 * spin_dot(1)
+    H = H_imp.copy()
+    for n in range(N):
+        for k in range(2):
+            for s in (1, -1):
+                h = c[mode(n, k, s)].T @ c[mode(n + 1, k, s)]
+                H += hop[n] * (h + h.T)
+    E, W = eigh(H)
+    rho = np.where(E - E[0] < 1e-10, 1.0, 0.0)
+    rho /= rho.sum()
+    om = (E[:, None] - E[None, :]).ravel()
+    sym = make_symmetry(symmetry, 2)
+    blk = two_channel_kondo_block(J1, J2)
+    steps = [Step(n, (0.0, 0.0), (hop[n - 1], hop[n - 1]), omega(n, Lam)) for n in range(1, N + 1)]
+    ops, corr = backward_operators(sym, blk, ("t-matrix",), impurity_level=False)
+    _r, ds = spectral_run(sym.from_explicit(blk), 0, omega(0, Lam), sym, steps, EngineSettings(kept_states=10 ** 6),
+                          ops, [0.0], corr, bins_per_decade=None)
+    comps = [(0, 1), (1, 1)] if symmetry == "su2" else [(0, 1), (0, -1), (1, 1), (1, -1)]
+    assert len(ds.components) == len(comps)
+    for ci, (k, s) in enumerate(comps):
+        O = c[mode(0, k, s)] @ H_imp - H_imp @ c[mode(0, k, s)]
+        A = W.T @ O.T @ W
+        o1, w1 = merged(ds.omega[0, 0, ci], ds.weight[0, 0, ci])
+        o2, w2 = merged(om, (A * A * (rho[None, :] + rho[:, None])).ravel())
+        assert o1.shape == o2.shape
+        np.testing.assert_allclose(o1, o2, atol=1e-9)
+        np.testing.assert_allclose(w1, w2, atol=1e-10)
