@@ -247,17 +247,17 @@ def test_broadened_spectrum_is_normalized(symmetric, asymmetric):
 
 @pytest.mark.slow
 def test_resonant_level_matches_exact_finite_band_spectral_function():
-    """U = 0, ε_d = 0.005, Γ = 0.01, Λ = 2, 4 twists, b = 0.3, 800 states: the z-averaged A(ω) follows
+    """U = 0, ε_d = 0.005, Γ = 0.01, Λ = 2, 4 twists, b = 0.4, 800 states: the z-averaged A(ω) follows
     the exact finite-band A = −(1/π) Im 1/(ω − ε_d − Σ), Σ = (Γ/π) ln|(ω+D)/(ω−D)| − iΓ (computed
-    here; textbook) for 1e-4 ≤ |ω| ≤ 0.5 D: within 4 % at T = 0 and T = 1e-4 (measured 3.6 %; the
-    plain log-Gaussian kernel was 13 % off in the tails), and, as A does not depend on T, within the
-    measured 6 %, 7 %, 10 % at T = 1e-3, 3e-3, Γ (the finite-temperature spectrum below |ω| ≈ T is
-    built from few shells: measured 5.5 %, 6.2 %, 9.7 %, just below T).  The linear conductance is
-    within 1 % of the exact integral ∫(−f')πΓA for T ≤ 3e-3 and 1.5 % at T = Γ (measured −0.8 … −1.1 %),
-    the T-matrix is πΓ A_d against the exact one, and the total weight is 1 within 1e-3."""
+    here; textbook) for 1e-4 ≤ |ω| ≤ 0.5 D: within 4 % at T = 0, 1e-4, 1e-3 (measured 3.6 %, 3.4 %,
+    3.5 %; the plain log-Gaussian kernel was 12 % off in the tails), 4.5 % at T = 3e-3 (measured 4.0 %)
+    and, as A does not depend on T, 7 % at T = Γ (measured 6.7 %, just below |ω| ≈ T, where the
+    finite-temperature spectrum is built from few shells: the 3 % asked for is not reached there).
+    The linear conductance is within 1 % of the exact integral ∫(−f')πΓA for every T ≤ Γ (measured
+    −0.7 … −0.9 %), the T-matrix is πΓ A_d against the exact one, and the total weight is 1 within 1e-3."""
     from scipy.special import expit
     text = config(0.0, 0.01, level=0.005, kept=800, twists=4, Lam=2.0, lowest=1e-6,
-                  spectral="temperatures = [0.0, 1e-4, 1e-3, 3e-3, 1e-2]\nbroadening = 0.3\n"
+                  spectral="temperatures = [0.0, 1e-4, 1e-3, 3e-3, 1e-2]\nbroadening = 0.4\n"
                            "quantities = [\"impurity\", \"t-matrix\"]\n"
                            "conductance_temperatures = [1e-4, 1e-3, 3e-3, 1e-2]")
     # the spectral part of the driver only (the flow's fixed-point labels are not needed here)
@@ -270,14 +270,14 @@ def test_resonant_level_matches_exact_finite_band_spectral_function():
     om = c.omega
     sel = (np.abs(om) >= 1e-4) & (np.abs(om) <= 0.5)
     ex = exact_resonant_level(om, 0.005, 0.01)
-    for i, tol in enumerate((0.04, 0.04, 0.06, 0.07, 0.10)):
+    for i, tol in enumerate((0.04, 0.04, 0.04, 0.045, 0.07)):
         np.testing.assert_allclose(c.spectral[i, 0][sel], ex[sel], rtol=tol)
         np.testing.assert_allclose(c.dynamics.curves["t-matrix"][i, 0][sel], math.pi * 0.01 * ex[sel], rtol=tol)
         assert log_integral(om, c.spectral[i, 0]) == pytest.approx(1.0, abs=1e-3)
-    for T, g, tol in zip(transport.temperature, transport.conductance, (0.01, 0.01, 0.01, 0.015)):
+    for T, g in zip(transport.temperature, transport.conductance):
         f = lambda w: math.pi * 0.01 * exact_resonant_level(np.array([w]), 0.005, 0.01)[0] * expit(w / T) * expit(-w / T) / T
         exact = integrate.quad(f, -1, 1, points=[0.005, 0.0], limit=400)[0]
-        assert g == pytest.approx(exact, rel=tol)
+        assert g == pytest.approx(exact, rel=0.01)
 
 
 def test_friedel_sum_rule_and_zero_temperature_conductance(symmetric, asymmetric):
