@@ -255,7 +255,7 @@ def _spectral_outputs(spec: RunSpec, results, bath):
     if sp.transport_temperatures:
         temps = np.asarray(sp.transport_temperatures, dtype=float)
         idx = [int(np.flatnonzero(curves.temperatures == T)[0]) for T in temps]
-        alloy = alloy_transport(curves.omega, dyn.curves["t-matrix"][idx], temps)
+        alloy = alloy_transport(curves.omega, dyn.curves["t-matrix"][idx], temps, half_bandwidth=D)
     if sp.self_energy:
         delta = hybridization_function(bath, imp.hybridization, curves.omega)
         levels = [imp.epsilon_d] if len(curves.components) == 1 else [imp.epsilon_d - 0.5 * imp.field,

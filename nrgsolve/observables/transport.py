@@ -146,7 +146,8 @@ class AlloyTransport:
 _T_FLOOR = 1e-12
 
 
-def transport_integrals(omega, t_matrix, temperature: float, orders=(0, 1, 2)) -> np.ndarray:
+def transport_integrals(omega, t_matrix, temperature: float, orders=(0, 1, 2),
+                        half_bandwidth: float | None = None) -> np.ndarray:
     """L̃_n = ∫ dω (−∂f/∂ω) ω^n / t(ω) for n in ``orders`` (units of D^n).
 
     Parameters
@@ -157,6 +158,8 @@ def transport_integrals(omega, t_matrix, temperature: float, orders=(0, 1, 2)) -
         t(ω) = −πρ Im T (dimensionless); several components are averaged after the integral.
     temperature : float
         > 0 (units of D).
+    half_bandwidth : float, optional
+        Only conduction electrons inside the band, |ω| ≤ D, carry current (default: the whole grid).
 
     Raises
     ------
@@ -166,11 +169,13 @@ def transport_integrals(omega, t_matrix, temperature: float, orders=(0, 1, 2)) -
     om = np.asarray(omega, dtype=float)
     t = np.atleast_2d(np.asarray(t_matrix, dtype=float))
     win = thermal_window(om, temperature)
+    if half_bandwidth is not None:
+        win = np.where(np.abs(om) <= half_bandwidth, win, 0.0)
     inv = 1.0 / np.maximum(t, _T_FLOOR)
     return np.array([float(np.mean(spectral_weight(om, win * om ** n * inv))) for n in orders])
 
 
-def alloy_transport(omega, t_matrix, temperatures) -> AlloyTransport:
+def alloy_transport(omega, t_matrix, temperatures, half_bandwidth: float | None = None) -> AlloyTransport:
     """Resistivity, thermopower and thermal conductivity of a dilute alloy (see the module docstring).
 
     Parameters
@@ -181,6 +186,10 @@ def alloy_transport(omega, t_matrix, temperatures) -> AlloyTransport:
         −πρ Im T at each temperature.
     temperatures : ndarray, shape (n_T,)
         > 0 (units of D).
+    half_bandwidth : float, optional
+        D: the integrals run over the band |ω| ≤ D only.  The formulas assume T ≪ D: at T ≳ D/50
+        electrons far from the Fermi level, which the impurity barely scatters, carry the current, and
+        ρ(T) is no longer a universal function of T/T_K.
 
     Returns
     -------
@@ -198,7 +207,7 @@ def alloy_transport(omega, t_matrix, temperatures) -> AlloyTransport:
     if t.ndim != 3 or t.shape[0] != len(temps) or t.shape[-1] != len(np.asarray(omega)):
         raise NrgInputError(f"alloy_transport: t_matrix has shape {np.shape(t_matrix)}; "
                             f"expected ({len(temps)}, [n_comp,] {len(np.asarray(omega))})")
-    L = np.array([transport_integrals(omega, t[i], T) for i, T in enumerate(temps)])
+    L = np.array([transport_integrals(omega, t[i], T, half_bandwidth=half_bandwidth) for i, T in enumerate(temps)])
     L0, L1, L2 = L[:, 0], L[:, 1], L[:, 2]
     kappa = (L2 - L1 ** 2 / L0) / temps ** 2
     return AlloyTransport(temperature=temps, resistivity=1.0 / L0, thermopower=-L1 / (temps * L0),
