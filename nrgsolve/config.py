@@ -603,7 +603,8 @@ def _check_value(table, key, spec: Key, value):
     if kind is bool:
         ok_type = isinstance(value, bool)
     if not ok_type:
-        raise ConfigError(f"{name}: expected {_type_name(kind)}, got {type(value).__name__} {show(value)}")
+        wanted = "a list of names" if spec.choices is None and key == "quantities" else _type_name(kind)
+        raise ConfigError(f"{name}: expected {wanted}, got {type(value).__name__} {show(value)}")
     if spec.choices is not None and value not in spec.choices:
         raise ConfigError(f"{name}: got {show(value)}; allowed: {spec.allowed}"
                           f"{_suggest(str(value)[:100], spec.choices)}")

@@ -376,3 +376,28 @@ def test_two_channel_composite_operators_match_dense_diagonalization(symmetry):
         assert o1.shape == o2.shape
         np.testing.assert_allclose(o1, o2, atol=1e-9)
         np.testing.assert_allclose(w1, w2, atol=1e-10)
+
+
+@pytest.mark.parametrize("text,message", [
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntemperatures = [0.0]\nquantities = ["chi"]\n',
+     "spectral.quantities: expected list of distinct names from: impurity, t-matrix, spin-susceptibility"),
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntemperatures = [0.0]\nquantities = ["t-matrix", "t-matrix"]\n',
+     "spectral.quantities: expected list of distinct names"),
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntemperatures = [0.0]\nquantities = "t-matrix"\n',
+     "spectral.quantities: expected a list of names, got str"),
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntemperatures = [0.0]\nquantities = ["impurity"]\n',
+     'spectral.quantities: expected impurity.model = "anderson" or "resonant-level"'),
+    ('[impurity]\nmodel = "two-channel-kondo"\n[spectral]\ntemperatures = [0.0]\nself_energy = true\n',
+     "spectral.self_energy: expected impurity.model"),
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntransport_temperatures = [0.5, 2.0]\n',
+     "spectral.transport_temperatures: expected temperatures < half_bandwidth"),
+    ('[impurity]\nmodel = "kondo"\n[spectral]\ntransport_temperatures = [0.0]\n',
+     "spectral.transport_temperatures: expected list of 1 to 64 numbers > 0"),
+])
+def test_bad_dynamics_requests_are_one_clear_error(text, message):
+    """Bad spectral requests name the key, what was received and what is allowed (common practice)."""
+    from nrgsolve.config import parse_config
+    from nrgsolve.errors import ConfigError
+    with pytest.raises(ConfigError) as err:
+        parse_config(text)
+    assert message in str(err.value)
