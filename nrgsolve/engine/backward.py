@@ -377,9 +377,12 @@ class _Bins:
             self.omega[flat].append(omega)
             self.weight[flat].append(weight)
             return
-        n = self.w.shape[-1]
-        self.w[index] += np.bincount(keys, weights=weight, minlength=n)
-        self.wom[index] += np.bincount(keys, weights=weight * omega, minlength=n)
+        if keys.size == 0:
+            return
+        lo, hi = int(keys.min()), int(keys.max()) + 1        # only the bins this block pair reaches
+        local = keys - lo
+        self.w[index][lo:hi] += np.bincount(local, weights=weight, minlength=hi - lo)
+        self.wom[index][lo:hi] += np.bincount(local, weights=weight * omega, minlength=hi - lo)
 
     def result(self):
         if self.raw:
