@@ -10,7 +10,10 @@ Writes (PNG only, small):
 * ``results/sweep_exchange_T_chi.png``: the configs/sweep_exchange.toml points
   on the T/T_K axis;
 * ``results/anderson_spectral.png``, ``results/anderson_conductance.png``: A(ω, T)
-  and G(T) of configs/anderson_spectral.toml.
+  and G(T) of configs/anderson_spectral.toml;
+* ``results/kondo_t_matrix.png``, ``results/alloy_resistivity.png``: −πρ Im T(ω) of
+  configs/kondo_alloy.toml, and the dilute-alloy resistivity ρ(T)/ρ(0) of that run and of
+  ρJ = 0.15 against T/T_K.
 
 The result files go to a temporary folder (or ``--data``); also regenerates
 docs/config.md.  Every figure is drawn from the stored files, like the
@@ -28,7 +31,8 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from nrgsolve.config import load_config  # noqa: E402
-from nrgsolve.plots import plot_conductance, plot_flow, plot_spectral, plot_thermo, save_figure  # noqa: E402
+from nrgsolve.plots import (plot_conductance, plot_flow, plot_spectral, plot_thermo, plot_transport,  # noqa: E402
+                            save_figure)
 from nrgsolve.solve import solve  # noqa: E402
 from nrgsolve.store import read_result, write_result  # noqa: E402
 from nrgsolve.sweep import run_sweep  # noqa: E402
@@ -43,6 +47,20 @@ def _spec(name, kept_states):
     if kept_states:
         spec = spec.with_value("run.kept_states", kept_states)
     return spec
+
+
+def dynamics_figures(data: Path, out: Path, kept_states: int = 0) -> list:
+    """T-matrix and alloy resistivity of configs/kondo_alloy.toml (and the same at ρJ = 0.15)."""
+    runs = []
+    for J in (0.2, 0.15):
+        spec = _spec("kondo_alloy", kept_states).with_value("impurity.exchange", J)
+        runs.append(read_result(write_result(solve(spec), data / f"kondo_alloy_{J}.h5", force=True)))
+        print(f"ran kondo_alloy at ρJ = {J}")
+    written = save_figure(plot_spectral(runs[0], quantity="t-matrix"), out / "kondo_t_matrix.png", force=True,
+                          pdf=False)
+    written += save_figure(plot_transport(runs, scale="kondo", normalized=True, labels=["ρJ = 0.2", "ρJ = 0.15"]),
+                           out / "alloy_resistivity.png", force=True, pdf=False)
+    return written
 
 
 def main(argv=None) -> int:
@@ -76,6 +94,7 @@ def main(argv=None) -> int:
         written += save_figure(plot_spectral(spectral), out / "anderson_spectral.png", force=True, pdf=False)
         written += save_figure(plot_conductance([spectral], labels=["U/Γ = 10"]), out / "anderson_conductance.png",
                                force=True, pdf=False)
+        written += dynamics_figures(data, out, args.kept_states)
         sweep = _spec("sweep_exchange", args.kept_states)
         outcome = run_sweep(sweep, data / "sweep_exchange", jobs=args.jobs, force=True)
         points = [read_result(outcome.folder / r["file"]) for r in outcome.rows]
