@@ -193,11 +193,11 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
         diag += bres.diag_seconds
     if fdm:
         thermo = impurity_thermodynamics_fdm(res.records, run_temperatures(spec, D), n_channels=n_channels,
-                                             abelian=(r.symmetry == "abelian"), bath_records=bath_records,
+                                             bath_records=bath_records,
                                              chain_onsite=chain.onsite, chain_hopping=chain.hopping)
     else:
         thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
-                                         abelian=(r.symmetry == "abelian"), n_channels=n_channels,
+                                         n_channels=n_channels,
                                          bath_records=bath_records)
     flow = flow_spectrum(res.records, r.flow_levels)
     return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),

@@ -30,7 +30,8 @@ m_1 = M − m_a, m_1' = m_1 + σ.  This is the usual 6j recoupling of a tensor
 acting on the first factor of a coupled product (Krishna-murthy, Wilkins &
 Wilson 1980; Tóth et al. 2008), here evaluated numerically from
 Clebsch–Gordan coefficients as :meth:`Su2Symmetry.site_coef` does, so no
-closed formula has to be trusted.
+closed formula has to be trusted.  Each symmetry implements it as
+:meth:`nrgsolve.engine.symmetry.Symmetry.block_op_coef`.
 
 The transformation kernel :func:`transform_block_operator` is a pure
 function of arrays: it takes the operator's matrices in the kept basis of
@@ -43,20 +44,18 @@ from __future__ import annotations
 
 import numpy as np
 
-from .clebsch import cg
 
 __all__ = ["block_operator_coef", "transform_block_operator"]
 
 
 def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float:
-    """Recoupling coefficient of a spinor operator acting on the old block.
+    """Recoupling coefficient of an operator acting on the old block (:meth:`Symmetry.block_op_coef`).
 
     Parameters
     ----------
-    sym : Su2Symmetry or AbelianSymmetry
-    comp : int or (int, int)
-        Component (channel in su2 mode, (channel, σ) in abelian mode); the
-        coefficient does not depend on it apart from the selection rules.
+    sym : Symmetry
+    comp : component of ``sym.components``
+        The coefficient does not depend on it apart from the selection rules.
     L_old_in, L_old_out : tuple
         Old block labels (right and left of the operator).
     a : int
@@ -68,38 +67,9 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out) -> float
     -------
     float
         ⟨(L_old_out, a) L_out‖O‖(L_old_in, a) L_in⟩ / ⟨L_old_out‖O‖L_old_in⟩
-        (reduced elements in su2 mode, plain elements in abelian mode).
+        (reduced elements for non-abelian labels, plain elements for abelian ones).
     """
-    site = sym.site[a]
-    sign = -1.0 if site.n_fermions % 2 else 1.0
-    if sym.name == "abelian":
-        return sign
-    key = ("blockop", L_old_in[-1], a, L_in[-1], L_old_out[-1], L_out[-1])
-    cache = sym._coef_cache
-    if key in cache:
-        return cache[key]
-    S1, S, S1p, Sp = L_old_in[-1], L_in[-1], L_old_out[-1], L_out[-1]
-    sa = site.label[-1]
-    total = 0.0
-    den = 0.0
-    for sigma in (1, -1):
-        M = Sp - sigma
-        den = cg(S, M, 1, sigma, Sp, Sp)
-        if den != 0.0:
-            break
-    if den != 0.0:
-        for ma in range(sa, -sa - 1, -2):
-            m1 = M - ma
-            m1p = m1 + sigma
-            c1 = cg(S1, m1, sa, ma, S, M)
-            if c1 == 0.0:
-                continue
-            c2 = cg(S1p, m1p, sa, ma, Sp, Sp)
-            c3 = cg(S1, m1, 1, sigma, S1p, m1p)
-            total += c1 * c2 * c3
-        total = sign * total / den
-    cache[key] = total
-    return total
+    return sym.block_op_coef(comp, L_old_in, a, L_in, L_old_out, L_out)
 
 
 def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=None):
@@ -107,7 +77,7 @@ def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=
 
     Parameters
     ----------
-    sym : Su2Symmetry or AbelianSymmetry
+    sym : Symmetry
     comp : int or (int, int)
         Operator component (raises the charge of channel ``comp`` by one).
     F_old : dict (L_old_out, L_old_in) -> ndarray (k_out, k_in)

@@ -470,9 +470,7 @@ def spectral_run(initial, initial_index, initial_scale, sym, steps, settings, op
         t_spec = time.perf_counter() - t1 + state["sink"]
     finally:
         store.close()
-    comp_names = ("spin",) if sym.name == "su2" else tuple(("up" if c[1] > 0 else "down") if c[0] == 0
-                                                         else f"{'up' if c[1] > 0 else 'down'}{c[0]}"
-                                                         for c in comps)
+    comp_names = sym.component_names
     om, we, total, lesser = spectrum
     return res, DiscreteSpectrum(temperatures=temps, components=comp_names,
                                  correlators=tuple(c[0] for c in correlators), omega=om, weight=we,
@@ -486,7 +484,6 @@ def _backward(shells, store, sym, comps, operators, correlators, temps, logw, lo
     bins = _Bins((nX, nT, nC), lowest, per_decade)
     total = np.zeros((nX, nT, nC))
     lesser = np.zeros((nX, nT, nC))
-    su2 = sym.name == "su2"
     # discarded weights per shell/block/temperature, and the weight carried by each shell and later ones
     rhoD = [[{L: np.exp(lw[L][sh["kept"][L]:] - logz[t]) for L in sh["energies"]}
              for sh, lw in zip(shells, logw[t])] for t in range(nT)]
@@ -522,7 +519,7 @@ def _backward(shells, store, sym, comps, operators, correlators, temps, logw, lo
                 regions = [(slice(0, ks), slice(kr, nr)), (slice(ks, ns), slice(0, nr))]
                 om_flat = np.concatenate([om[a, b].ravel() for a, b in regions])
                 keys = bins.keys(om_flat)
-                fac = sh["mult"][Ls] / 2.0 if su2 else 1.0
+                fac = sym.spectral_weight_factor(Ls)
                 for t in active:
                     rK_s, rK_r = rhoK[t].get(Ls), rhoK[t].get(Lr)
                     rD_s, rD_r = rhoD[t][i][Ls], rhoD[t][i][Lr]
