@@ -36,7 +36,7 @@ __all__ = [
 MODELS = model_names()
 BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
-SYMMETRIES = ("su2", "abelian")
+SYMMETRIES = ("auto", "isospin", "su2", "abelian")
 THERMO_METHODS = ("full-density-matrix", "conventional")
 
 
@@ -146,7 +146,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "error_estimate": Key(bool, False, "-", "true | false",
                               "repeat the run with 1.5 × kept_states, and at Λ^1.25 with twice the twists, and give every "
                               "headline number an uncertainty (measured: about 3 × the time of a plain run)"),
-        "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
+        "symmetry": Key(str, "auto", "-", " | ".join(SYMMETRIES),
+                        "quantum numbers used by the engine: \"auto\" picks the largest symmetry the model, bath and "
+                        "field allow (isospin = spin × charge SU(2) at particle-hole symmetry, then su2, then abelian)",
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 and <= 1024 (0: one per twist, at most the CPU count)",
                        "parallel processes for the twists", lambda n: 0 <= n <= 1024),
@@ -803,8 +805,9 @@ def _build(values, text, path, sweep) -> RunSpec:
 
 def _cross_checks(spec: RunSpec):
     imp, bath, run = spec.impurity, spec.bath, spec.run
-    if imp.field != 0.0 and run.symmetry == "su2":
-        raise ConfigError("impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = \"abelian\" only")
+    if imp.field != 0.0 and run.symmetry in ("su2", "isospin"):
+        raise ConfigError(f"impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = "
+                          f"\"abelian\" or \"auto\" only (got \"{run.symmetry}\")")
     if bath.shape == "table" and not bath.table:
         raise ConfigError("bath.table: shape \"table\" needs bath.table = \"path/to/file\"")
     if bath.shape != "table" and bath.table:

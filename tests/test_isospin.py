@@ -123,3 +123,72 @@ def test_isospin_refuses_a_chain_with_onsite_energies():
     with pytest.raises(NrgInputError, match="on-site"):
         run_chain(sym.from_explicit(kondo_block(0.3, 0.0, 1)), 0, omega(0, LAM), sym, steps,
                   EngineSettings(kept_states=100))
+
+
+# --------------------------------------------------------------------------------------------
+# The driver: same thermodynamics as su2, "auto", refusals
+# --------------------------------------------------------------------------------------------
+
+from nrgsolve.api import as_spec                       # noqa: E402
+from nrgsolve.errors import ConfigError                # noqa: E402
+from nrgsolve.solve import solve, bath_from_spec       # noqa: E402
+from nrgsolve.symmetry_choice import choose_symmetry   # noqa: E402
+
+DRIVER_CASES = {
+    "anderson": {"impurity": {"model": "anderson", "interaction": 0.1, "hybridization": 0.01}},
+    "kondo": {"impurity": {"model": "kondo", "exchange": 0.25}},
+    "two-channel": {"impurity": {"model": "two-channel-kondo", "exchange": 0.3}},
+    "pseudogap": {"impurity": {"model": "anderson", "interaction": 0.1, "hybridization": 0.05},
+                  "bath": {"shape": "power-law", "exponent": 0.3}},
+}
+
+
+def _config(case, symmetry):
+    cfg = {k: dict(v) for k, v in DRIVER_CASES[case].items()}
+    kept = 300 if case == "two-channel" else 200
+    cfg["run"] = {"kept_states": kept, "lowest_temperature": 1e-5, "symmetry": symmetry}
+    cfg["discretization"] = {"twists": 1}
+    return cfg
+
+
+@pytest.fixture(scope="module")
+def driver_runs():
+    return {(case, s): solve(as_spec(_config(case, s)), workers=1)
+            for case in DRIVER_CASES for s in ("su2", "auto")}
+
+
+@pytest.mark.parametrize("case", list(DRIVER_CASES))
+def test_isospin_and_su2_give_the_same_thermodynamics(case, driver_runs):
+    """Symmetric Anderson model, Kondo model, two-channel Kondo model and a symmetric pseudogap bath
+    (g ∝ |ε|^0.3): "auto" picks isospin, and T·χ_imp, S_imp, C_imp (full density matrix, with the bath
+    run) equal those of su2 — the symmetry only regroups the same states (common practice, no source)."""
+    su2, iso = driver_runs[(case, "su2")], driver_runs[(case, "auto")]
+    assert iso.spec.run.symmetry == "isospin" and su2.spec.run.symmetry == "su2"
+    np.testing.assert_allclose(iso.thermo.temperature, su2.thermo.temperature)
+    for q in ("T_chi", "entropy", "heat"):
+        np.testing.assert_allclose(getattr(iso.thermo, q), getattr(su2.thermo, q), atol=1e-7, err_msg=q)
+    a, b = iso.twists[0].flow, su2.twists[0].flow
+    np.testing.assert_allclose(a.energy[:, :10], b.energy[:, :10], atol=1e-7)
+
+
+@pytest.mark.parametrize("cfg,breaker,fallback", [
+    ({"impurity": {"model": "anderson", "interaction": 0.1, "level": -0.02, "hybridization": 0.01}},
+     "impurity.level", "su2"),
+    ({"impurity": {"model": "kondo", "exchange": 0.2, "potential_scattering": 0.05}},
+     "impurity.potential_scattering", "su2"),
+    ({"impurity": {"model": "kondo", "exchange": 0.2, "field": 1e-3}}, "impurity.field", "abelian"),
+    ({"impurity": {"model": "kondo", "exchange": 0.2}, "bath": {"shape": "table", "table": "TABLE"}},
+     "the bath", "su2"),
+])
+def test_isospin_refuses_what_breaks_particle_hole_symmetry_and_auto_falls_back(cfg, breaker, fallback, tmp_path):
+    """ε_d ≠ −U/2, potential scattering, a field, an asymmetric table bath: "isospin" is refused with one
+    line naming the cause, "auto" falls back to su2 (abelian in a field)."""
+    if "bath" in cfg:
+        table = tmp_path / "asymmetric.txt"
+        table.write_text("-1.0 0.5\n-0.2 0.6\n0.0 0.8\n0.3 1.0\n1.0 1.0\n")
+        cfg = {**cfg, "bath": {"shape": "table", "table": str(table)}}
+    spec = as_spec({**cfg, "run": {"symmetry": "auto"}})
+    assert choose_symmetry(spec, bath_from_spec(spec)) == fallback
+    with pytest.raises(ConfigError, match=breaker):
+        spec = as_spec({**cfg, "run": {"symmetry": "isospin"}})
+        choose_symmetry(spec, bath_from_spec(spec))

@@ -57,7 +57,7 @@ def cmd_run(args) -> int:
         scheme = d.scheme + ((" with A_Λ correction" if d.wilson_correction else " without A_Λ correction")
                              if d.scheme == "wilson" else "")
         print(f"model {spec.impurity.model}, Λ = {d.Lambda:g} ({scheme}), {d.twists} twist(s), "
-              f"kept states {spec.run.kept_states}, symmetry {spec.run.symmetry}")
+              f"kept states {spec.run.kept_states}, symmetry {result.spec.run.symmetry}")
         print(f"thermodynamics: {spec.run.thermodynamics}; Kondo temperature (Wilson): χ(0) = w/4T_K, "
               f"w = {WILSON_NUMBER:.4f}; (crossover): T_K χ(T_K) = 0.07")
         for line in summary_lines(headline_values(result), result.uncertainties):

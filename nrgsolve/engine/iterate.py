@@ -178,7 +178,11 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
         lo, hi = max(lo, 1), min(hi, len(Es) - 1)
         if hi > lo:
             gaps = Es[lo:hi + 1] - Es[lo - 1:hi]          # gap below each candidate first-discarded level
-            n_keep = lo + int(np.argmax(gaps))
+            # equal gaps (equally spaced levels) are common: roundoff must not decide between them, so
+            # among the widest (within degeneracy_tol) take the cut nearest to the given energy
+            best = np.flatnonzero(gaps >= gaps.max() - settings.degeneracy_tol)
+            mids = 0.5 * (Es[lo + best] + Es[lo + best - 1])
+            n_keep = lo + int(best[np.argmin(np.abs(mids - cutoff))])
         else:
             n_keep = int(np.searchsorted(Es, cutoff, side="right"))
     elif cutoff is not None:
