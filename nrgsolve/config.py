@@ -159,6 +159,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               "how the bare-chain thermodynamics subtracted from the impurity run is computed: "
                               "an NRG run with the same truncation (errors cancel) or exact single-particle",
                               choices=("nrg", "exact")),
+        "bath_cache": Key(bool, True, "-", "true | false",
+                          "keep the bath-only reference run in the user's cache folder and reuse it whenever the "
+                          "chain and truncation are the same (sweeps, reruns); results are identical either way"),
         "flow_levels": Key(int, 40, "levels", f">= 1 and <= {MAX_FLOW_LEVELS}",
                            "lowest levels per iteration stored for the flow",
                            lambda n: 1 <= n <= MAX_FLOW_LEVELS),
@@ -364,6 +367,7 @@ class RunSettings:
     workers: int = _default("run", "workers")
     blas_threads: int = _default("run", "blas_threads")
     bath_reference: str = _default("run", "bath_reference")
+    bath_cache: bool = _default("run", "bath_cache")
     flow_levels: int = _default("run", "flow_levels")
 
     def __post_init__(self):

@@ -180,7 +180,7 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     bath_records = None
     diag = res.diag_seconds
     if r.bath_reference == "nrg":
-        bare = sym.from_explicit(bare_chain_block(float(chain.onsite[0]), n_channels))
+        bare = sym.from_explicit(bare_chain_block(float(onsite[0]), n_channels))
         # the bath run starts at site 1 with the chain's own hopping t_0
         bsteps = chain_steps(onsite, chain.hopping, scale, 1, n_sites, n_channels)
         # full density matrix: the bath run discards above the impurity run's truncation energy of each
@@ -189,9 +189,18 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
         bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                                    flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric(),
                                    cutoffs=cutoffs)
-        bres = run_chain(bare, 0, scale(0), sym, bsteps, bsettings, None)
-        bath_records = bres.records
-        diag += bres.diag_seconds
+        from .bath_cache import cached_bath_records
+        parts = {"symmetry": sym.name, "channels": n_channels, "onsite0": float(onsite[0]),
+                 "steps": [(st.index, list(np.ravel(st.onsite)), list(np.ravel(st.hopping)), st.scale) for st in bsteps],
+                 "onsite": np.asarray(onsite, dtype=float), "hopping": np.asarray(chain.hopping, dtype=float)}
+        bres = []
+
+        def bath_run():
+            bres.append(run_chain(bare, 0, scale(0), sym, bsteps, bsettings, None))
+            return bres[0].records
+
+        bath_records, _ = cached_bath_records(bath_run, parts, bsettings, use_cache=r.bath_cache)
+        diag += bres[0].diag_seconds if bres else 0.0
     if fdm:
         thermo = impurity_thermodynamics_fdm(res.records, run_temperatures(spec, D), n_channels=n_channels,
                                              bath_records=bath_records,

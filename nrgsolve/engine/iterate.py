@@ -28,7 +28,7 @@ import scipy.linalg as sla
 from ..errors import NrgNumericalError, NrgInputError
 from .symmetry import BlockSet, Symmetry
 
-__all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain"]
+__all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain", "cut_energy"]
 
 
 @dataclass(frozen=True)
@@ -206,6 +206,27 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
             f"multiplet after the first iteration (need at least {int(cum[n_keep - 1]) + 1})")
     kept = {L: int(np.count_nonzero(energies_by_block[L] < ecut)) for L in labels}
     return kept, float(ecut), int(cum[n_keep - 1])
+
+
+class _SingleStates:
+    """A stand-in symmetry whose labels hold one state each (for :func:`cut_energy`)."""
+
+    @staticmethod
+    def multiplicity(label) -> int:
+        return 1
+
+
+def cut_energy(energies, settings: EngineSettings, cutoff: float) -> float:
+    """The truncation energy the engine chooses for ``energies`` (units of ω_N, from the ground state)
+    when it is asked to follow ``cutoff`` (see ``EngineSettings.cutoffs``; inf: nothing discarded).
+
+    The same rule as inside :func:`run_chain`; used to check whether a stored run followed the same
+    truncation.  Multiplicities do not enter this rule.
+    """
+    from dataclasses import replace
+    _, ecut, _ = _truncate({0: np.asarray(energies, dtype=float)}, _SingleStates,
+                           replace(settings, cutoffs={0: float(cutoff)}), first=False, index=0)
+    return ecut
 
 
 def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settings, dims, dsec):
