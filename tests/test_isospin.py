@@ -192,3 +192,33 @@ def test_isospin_refuses_what_breaks_particle_hole_symmetry_and_auto_falls_back(
     with pytest.raises(ConfigError, match=breaker):
         spec = as_spec({**cfg, "run": {"symmetry": "isospin"}})
         choose_symmetry(spec, bath_from_spec(spec))
+
+
+def test_isospin_spectra_equal_su2_spectra():
+    """The backward (spectral) pass in the isospin mode: the discrete weights of ⟨⟨d; d†⟩⟩ and of the
+    self-energy correlator ⟨⟨d n; d†⟩⟩ (symmetric Anderson model, 10 sites, 150 kept states, T = 0 and
+    T = 1e-3 D), summed in half-decade bins of ω, equal those of the su2 mode (common practice, no source)."""
+    from nrgsolve.observables.spectral import spectral_run, impurity_operators
+    V = np.sqrt(2 * 0.02 / np.pi)
+    blk = anderson_block(-0.15, 0.3, V)
+    hop = wilson_hopping(np.arange(10), LAM)
+    steps = chain_steps(np.zeros(10), hop, lambda n: omega(n, LAM), 0, 10, 1, [V])
+    out = {}
+    for s in ("su2", "isospin"):
+        sym = make_symmetry(s)
+        _, out[s] = spectral_run(sym.from_explicit(blk), -1, omega(-1, LAM), sym, steps,
+                                 EngineSettings(kept_states=150), impurity_operators(sym, blk, True), (0.0, 1e-3),
+                                 (("G", "d", "d"), ("F", "dn", "d")), bins_per_decade=None)
+    a, b = out["su2"], out["isospin"]
+    np.testing.assert_allclose(b.total, a.total, atol=1e-12)
+    np.testing.assert_allclose(b.lesser, a.lesser, atol=1e-12)
+    edges = np.arange(-9, 1.01, 0.5)
+    for x in range(2):
+        for t in range(2):
+            for sign in (1, -1):
+                h = []
+                for d in (a, b):
+                    om, w = d.omega[x, t, 0], d.weight[x, t, 0]
+                    sel = (np.sign(om) == sign) & (w != 0)
+                    h.append(np.histogram(np.log10(np.abs(om[sel])), bins=edges, weights=w[sel])[0])
+                np.testing.assert_allclose(h[1], h[0], atol=1e-10)
