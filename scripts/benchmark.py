@@ -222,6 +222,9 @@ def main(argv=None):
                    help="kept states of the two-channel Kondo case (none: skip it)")
     p.add_argument("--two-channel-symmetry", nargs="+", default=["isospin", "su2"], choices=["isospin", "su2"])
     p.add_argument("--only-two-channel", action="store_true", help="run only the two-channel case")
+    p.add_argument("--sweep-points", type=int, default=10,
+                   help="points of the Kondo-coupling sweep case (0: skip it)")
+    p.add_argument("--only-sweep", action="store_true", help="run only the sweep case")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     if a.case:
@@ -234,6 +237,15 @@ def main(argv=None):
     if a.only_two_channel:
         run_two_channel(a)
         return 0
+    if a.only_sweep or a.sweep_points:
+        if a.sweep_points:
+            c = sweep_case(a.sweep_points, 1000)
+            print(f"Kondo sweep, {a.sweep_points} values of ρJ in 0.1 … 0.3 (Λ = 3, 2 twists, 1000 kept, full density "
+                  f"matrix, down to 1e-8 D, one process): {a.sweep_points} independent su2 runs without the bath cache "
+                  f"{c['old']:.1f} s; the sweep with the defaults (auto symmetry, cached bath runs: {c['computed']} "
+                  f"computed, {c['reused']} reused) {c['new']:.1f} s = {c['new'] / c['old']:.2f} x", flush=True)
+        if a.only_sweep:
+            return 0
     if not a.no_thermodynamics:
         c = thermodynamics_case()
         print(f"Kondo model at the defaults (ρJ = 0.15, Λ = 3, 2 twists, 1000 kept, T down to 1e-9 D, one process): "
@@ -281,6 +293,43 @@ def main(argv=None):
                       f"spectral {sc['spectral']:.1f} s, spectral/forward = {sc['spectral'] / sc['forward']:.2f}",
                       flush=True)
     return 0
+
+
+def sweep_case(points: int, kept: int) -> dict:
+    """A sweep over the Kondo coupling ρJ = 0.1 … 0.3 (defaults otherwise: Λ = 3, 2 twists, full density
+    matrix, down to 1e-8 D, one process): ``points`` independent runs as before this change (su2, no bath
+    cache) against the sweep with the new defaults (symmetry "auto", bath runs cached in a fresh folder)."""
+    import os
+    import tempfile
+
+    import numpy as np
+
+    from nrgsolve.config import parse_config
+    from nrgsolve.solve import solve
+    from nrgsolve.sweep import run_sweep
+    from nrgsolve import bath_cache
+
+    values = [float(v) for v in np.linspace(0.1, 0.3, points)]
+    base = f"""
+[impurity]
+model = "kondo"
+exchange = 0.2
+[run]
+kept_states = {kept}
+lowest_temperature = 1e-8
+"""
+    t0 = time.perf_counter()
+    for v in values:
+        solve(parse_config(base.replace("exchange = 0.2", f"exchange = {v!r}")
+                           + 'symmetry = "su2"\nbath_cache = false\n', "old"), workers=1)
+    old = time.perf_counter() - t0
+    with tempfile.TemporaryDirectory() as cache, tempfile.TemporaryDirectory() as out:
+        os.environ["NRGSOLVE_CACHE_DIR"] = cache
+        spec = parse_config(base + f'\n[sweep]\n"impurity.exchange" = {values!r}\n', "sweep.toml")
+        t0 = time.perf_counter()
+        run_sweep(spec, out, jobs=1)
+        new = time.perf_counter() - t0
+    return {"old": old, "new": new, "computed": bath_cache.STATS.computed, "reused": bath_cache.STATS.reused}
 
 
 def run_two_channel(a):
