@@ -234,7 +234,7 @@ def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settin
     (:meth:`Symmetry.levels`), so the observables see (charge, spin) multiplets in every mode."""
     labels = list(energies)
     views = {L: sym.levels(L) for L in labels}
-    rep = lambda f, L: [f(v) for v in views[L] for _ in range(len(energies[L]))]
+    rep = lambda f, L: np.repeat(np.asarray([f(v) for v in views[L]]), len(energies[L]), axis=0)
     E = np.concatenate([np.tile(energies[L], len(views[L])) for L in labels])
     mult = np.concatenate([rep(lambda v: v.multiplicity, L) for L in labels]).astype(int)
     charge = np.concatenate([rep(lambda v: v.charge, L) for L in labels]).astype(int)
