@@ -326,6 +326,7 @@ lowest_temperature = 1e-8
     with tempfile.TemporaryDirectory() as cache, tempfile.TemporaryDirectory() as out:
         os.environ["NRGSOLVE_CACHE_DIR"] = cache
         spec = parse_config(base + f'\n[sweep]\n"impurity.exchange" = {values!r}\n', "sweep.toml")
+        bath_cache.STATS.computed = bath_cache.STATS.reused = 0
         t0 = time.perf_counter()
         run_sweep(spec, out, jobs=1)
         new = time.perf_counter() - t0

@@ -13,7 +13,7 @@ from nrgsolve.engine.iterate import chain_steps
 from nrgsolve.engine.reference import kondo_dense_spectrum, anderson_dense_spectrum
 from nrgsolve.errors import NrgInputError
 from nrgsolve.models import anderson_block, kondo_block, two_channel_kondo_block
-from conftest import expand_multiplets, omega, wilson_hopping, assert_same_levels
+from conftest import expand_multiplets, omega, wilson_hopping
 
 LAM = 2.0
 

@@ -26,7 +26,7 @@ import numpy as np
 import scipy.linalg as sla
 
 from ..errors import NrgNumericalError, NrgInputError
-from .symmetry import BlockSet, Symmetry
+from .symmetry import BlockSet
 
 __all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain", "cut_energy"]
 

@@ -209,8 +209,9 @@ class IsospinSymmetry(Symmetry):
         full[-1] = mu[1]
         return tuple(full)
 
-    def _reduced(self, comps_in, L, comps_out, Lp, T, comp):
-        """Reduced matrix ⟨L'‖T‖L⟩ from explicit components (highest weight on the left)."""
+    def _reduced(self, comps_in, L, hw_out, Lp, T, comp):
+        """Reduced matrix ⟨L'‖T‖L⟩ from the explicit components of L (dict m -> vectors) and the
+        highest-weight vectors of L' (Wigner–Eckart: divide one element by its Clebsch–Gordan product)."""
         t = self._rank(comp)
         for mu, op in T.items():
             mf = self._mu_full(comp, mu)
@@ -219,7 +220,7 @@ class IsospinSymmetry(Symmetry):
                 continue
             c = _cgp(L, m, t, mf, Lp, Lp)
             if c != 0.0:
-                return comps_out[Lp].T @ op @ comps_in[m] / c
+                return hw_out.T @ op @ comps_in[m] / c
         return None
 
     def from_explicit(self, block: ExplicitBlock) -> BlockSet:
@@ -253,7 +254,7 @@ class IsospinSymmetry(Symmetry):
                 for Lp in self.f_targets(k, L):
                     if Lp not in comps:
                         continue
-                    red = self._reduced(comps[L], L, {Lp: comps[Lp][Lp]}, Lp, T, k)
+                    red = self._reduced(comps[L], L, comps[Lp][Lp], Lp, T, k)
                     if red is not None and np.abs(red).max(initial=0) > TOL:
                         Fk[(Lp, L)] = red
             F[k] = Fk
