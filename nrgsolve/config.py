@@ -551,6 +551,8 @@ def _type_name(kind):
         return "a list of numbers"
     if kind == (list, dict):
         return "a list of numbers or a table { start, stop, points }"
+    if kind == (str, dict):
+        return "a file path or a table { energies = [...], values = [...] }"
     return "a string"
 
 

@@ -313,6 +313,9 @@ def _solve_once(spec: RunSpec, progress=None, workers: int | None = None) -> Run
     if workers == 0:
         workers = min(len(zs), os.cpu_count() or 1)
     workers = max(1, min(workers, len(zs)))
+    from .workers import can_spawn
+    if workers > 1 and not can_spawn():      # e.g. a script piped into python: run the twists here
+        workers = 1
     if workers == 1:
         cb = (lambda n: progress(1)) if progress is not None else None
         results = [solve_twist(spec, z, cb, bath) for z in zs]

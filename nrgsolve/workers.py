@@ -31,7 +31,7 @@ from typing import Callable
 
 from .errors import NrgError
 
-__all__ = ["Terminated", "WorkerDied", "process_pool", "terminate_pool", "map_in_processes", "report",
+__all__ = ["Terminated", "WorkerDied", "can_spawn", "process_pool", "terminate_pool", "map_in_processes", "report",
            "install_termination_handler"]
 
 #: Seconds between two checks of the watchdog thread.
@@ -165,6 +165,14 @@ def submit_all(pool, fn, arg_tuples) -> list:
         return [pool.submit(fn, *args) for args in arg_tuples]
 
 
+def can_spawn() -> bool:
+    """True when worker processes can start here: the main module is a notebook, an interactive session
+    or a script file (code read from standard input cannot be re-imported by a spawned worker)."""
+    main = sys.modules.get("__main__")
+    path = getattr(main, "__file__", None)
+    return path is None or os.path.isfile(path)
+
+
 def map_in_processes(fn, arg_tuples, workers: int, progress: Callable[[int], None] | None = None) -> list:
     """``[fn(*a) for a in arg_tuples]`` in ``workers`` processes (results in order).
 
@@ -214,7 +222,8 @@ def map_in_processes(fn, arg_tuples, workers: int, progress: Callable[[int], Non
                 return [f.result() for f in futs]
             except BrokenProcessPool:
                 raise WorkerDied("a worker process ended before finishing its task (killed, or out of "
-                                 "memory)") from None
+                                 "memory; from a Python script, its top level must be guarded by "
+                                 "'if __name__ == \"__main__\":')") from None
     finally:
         if queue is not None:
             queue.close()
