@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
+from .engine.symmetry import SYMMETRIES as _SYMMETRY_CLASSES
 from .models.registry import model as model_declaration, model_names, impurity_parameters
 from .keys import (Key, NUM, finite, MAX_ENERGY, MAX_EXPONENT, MIN_LAMBDA,
                    MAX_LAMBDA, MAX_TWISTS, MIN_BETA_BAR, MAX_BETA_BAR, MAX_KEPT_STATES, MAX_ENERGY_CUTOFF,
@@ -36,7 +37,8 @@ __all__ = [
 MODELS = model_names()
 BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
-SYMMETRIES = ("auto", "isospin", "su2", "abelian")
+#: "auto" (the largest symmetry the run allows, see nrgsolve.symmetry_choice) and every implementation
+SYMMETRIES = ("auto",) + tuple(_SYMMETRY_CLASSES)
 THERMO_METHODS = ("full-density-matrix", "conventional")
 
 
@@ -811,7 +813,7 @@ def _build(values, text, path, sweep) -> RunSpec:
 
 def _cross_checks(spec: RunSpec):
     imp, bath, run = spec.impurity, spec.bath, spec.run
-    if imp.field != 0.0 and run.symmetry in ("su2", "isospin"):
+    if imp.field != 0.0 and run.symmetry != "auto" and not _SYMMETRY_CLASSES[run.symmetry].resolves_sz:
         raise ConfigError(f"impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = "
                           f"\"abelian\" or \"auto\" only (got \"{run.symmetry}\")")
     if bath.shape == "table" and not bath.table:

@@ -43,25 +43,37 @@ def particle_hole_breakers(spec, bath) -> list:
     return out
 
 
+def _obstacle(cls, spec, breakers) -> str | None:
+    """Why the symmetry ``cls`` cannot serve this run (None when it can)."""
+    if spec.impurity.field != 0.0 and not cls.resolves_sz:
+        return f"impurity.field = {spec.impurity.field:g} ≠ 0 breaks spin-rotation symmetry"
+    if cls.particle_hole_only and breakers:
+        return "it needs particle-hole symmetry, but " + "; ".join(breakers)
+    return None
+
+
 def choose_symmetry(spec, bath) -> str:
-    """The symmetry a run uses: ``run.symmetry`` itself, or for ``"auto"`` the largest one allowed.
+    """The symmetry a run uses: ``run.symmetry`` itself, or for ``"auto"`` the largest one allowed
+    (the first of :data:`nrgsolve.engine.symmetry.SYMMETRIES` without an obstacle).
 
     Raises
     ------
     ConfigError
-        ``run.symmetry = "isospin"`` for a run that is not particle-hole symmetric (one line naming
-        what breaks it).
+        The symmetry asked for cannot serve the run, e.g. ``"isospin"`` without particle-hole symmetry
+        (one line naming what breaks it).
     """
+    from .engine.symmetry import SYMMETRIES
     asked = spec.run.symmetry
     breakers = particle_hole_breakers(spec, bath)
-    if asked == "isospin" and breakers:
-        raise ConfigError(f"run.symmetry: got \"isospin\", which needs particle-hole symmetry, but "
-                          f"{'; '.join(breakers)}; use \"auto\" or \"su2\"")
     if asked != "auto":
+        why = _obstacle(SYMMETRIES[asked], spec, breakers)
+        if why:
+            raise ConfigError(f"run.symmetry: got \"{asked}\", but {why}; use \"auto\" or a smaller symmetry")
         return asked
-    if spec.impurity.field != 0.0:
-        return "abelian"
-    return "su2" if breakers else "isospin"
+    for name, cls in SYMMETRIES.items():
+        if _obstacle(cls, spec, breakers) is None:
+            return name
+    raise ConfigError("run.symmetry: no symmetry fits this run")        # abelian always fits
 
 
 def with_resolved_symmetry(spec, bath):
