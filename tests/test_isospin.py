@@ -160,13 +160,16 @@ def driver_runs():
 @pytest.mark.parametrize("case", list(DRIVER_CASES))
 def test_isospin_and_su2_give_the_same_thermodynamics(case, driver_runs):
     """Symmetric Anderson model, Kondo model, two-channel Kondo model and a symmetric pseudogap bath
-    (g ∝ |ε|^0.3): "auto" picks isospin, and T·χ_imp, S_imp, C_imp (full density matrix, with the bath
-    run) equal those of su2 — the symmetry only regroups the same states (common practice, no source)."""
+    (g ∝ |ε|^0.3): "auto" picks isospin, and T·χ_imp, S_imp, C_imp and the impurity averages (full
+    density matrix, with the bath run) equal those of su2 — the symmetry only regroups the same states (common practice, no source)."""
     su2, iso = driver_runs[(case, "su2")], driver_runs[(case, "auto")]
     assert iso.spec.run.symmetry == "isospin" and su2.spec.run.symmetry == "su2"
     np.testing.assert_allclose(iso.thermo.temperature, su2.thermo.temperature)
     for q in ("T_chi", "entropy", "heat"):
         np.testing.assert_allclose(getattr(iso.thermo, q), getattr(su2.thermo, q), atol=1e-7, err_msg=q)
+    assert set(iso.thermo.extra) == set(su2.thermo.extra)
+    for q in iso.thermo.extra:           # impurity averages (⟨n_d⟩, ⟨n_d↑n_d↓⟩), free energy
+        np.testing.assert_allclose(iso.thermo.extra[q], su2.thermo.extra[q], atol=1e-7, err_msg=q)
     a, b = iso.twists[0].flow, su2.twists[0].flow
     np.testing.assert_allclose(a.energy[:, :10], b.energy[:, :10], atol=1e-7)
 
