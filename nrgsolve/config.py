@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
+from .engine.symmetry import SYMMETRIES as _SYMMETRY_CLASSES
 from .models.registry import model as model_declaration, model_names, impurity_parameters
 from .keys import (Key, NUM, finite, MAX_ENERGY, MAX_EXPONENT, MIN_LAMBDA,
                    MAX_LAMBDA, MAX_TWISTS, MIN_BETA_BAR, MAX_BETA_BAR, MAX_KEPT_STATES, MAX_ENERGY_CUTOFF,
@@ -36,7 +37,8 @@ __all__ = [
 MODELS = model_names()
 BATH_SHAPES = ("flat", "semicircular", "power-law", "table")
 SCHEMES = ("wilson", "adaptive")
-SYMMETRIES = ("su2", "abelian")
+#: "auto" (the largest symmetry the run allows, see nrgsolve.symmetry_choice) and every implementation
+SYMMETRIES = ("auto",) + tuple(_SYMMETRY_CLASSES)
 THERMO_METHODS = ("full-density-matrix", "conventional")
 #: What the spectral (backward) pass can compute (``spectral.quantities``).
 SPECTRAL_QUANTITIES = ("impurity", "t-matrix", "spin-susceptibility")
@@ -148,7 +150,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "error_estimate": Key(bool, False, "-", "true | false",
                               "repeat the run with 1.5 × kept_states, and at Λ^1.25 with twice the twists, and give every "
                               "headline number an uncertainty (measured: about 3 × the time of a plain run)"),
-        "symmetry": Key(str, "su2", "-", " | ".join(SYMMETRIES), "quantum numbers used by the engine",
+        "symmetry": Key(str, "auto", "-", " | ".join(SYMMETRIES),
+                        "quantum numbers used by the engine: \"auto\" picks the largest symmetry the model, bath and "
+                        "field allow (isospin = spin × charge SU(2) at particle-hole symmetry, then su2, then abelian)",
                         choices=SYMMETRIES),
         "workers": Key(int, 0, "processes", ">= 0 and <= 1024 (0: one per twist, at most the CPU count)",
                        "parallel processes for the twists", lambda n: 0 <= n <= 1024),
@@ -159,6 +163,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               "how the bare-chain thermodynamics subtracted from the impurity run is computed: "
                               "an NRG run with the same truncation (errors cancel) or exact single-particle",
                               choices=("nrg", "exact")),
+        "bath_cache": Key(bool, True, "-", "true | false",
+                          "keep the bath-only reference run in the user's cache folder and reuse it whenever the "
+                          "chain and truncation are the same (sweeps, reruns); results are identical either way"),
         "flow_levels": Key(int, 40, "levels", f">= 1 and <= {MAX_FLOW_LEVELS}",
                            "lowest levels per iteration stored for the flow",
                            lambda n: 1 <= n <= MAX_FLOW_LEVELS),
@@ -387,6 +394,7 @@ class RunSettings:
     workers: int = _default("run", "workers")
     blas_threads: int = _default("run", "blas_threads")
     bath_reference: str = _default("run", "bath_reference")
+    bath_cache: bool = _default("run", "bath_cache")
     flow_levels: int = _default("run", "flow_levels")
 
     def __post_init__(self):
@@ -844,8 +852,9 @@ def _build(values, text, path, sweep) -> RunSpec:
 
 def _cross_checks(spec: RunSpec):
     imp, bath, run = spec.impurity, spec.bath, spec.run
-    if imp.field != 0.0 and run.symmetry == "su2":
-        raise ConfigError("impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = \"abelian\" only")
+    if imp.field != 0.0 and run.symmetry != "auto" and not _SYMMETRY_CLASSES[run.symmetry].resolves_sz:
+        raise ConfigError(f"impurity.field: a non-zero field breaks spin symmetry; allowed with run.symmetry = "
+                          f"\"abelian\" or \"auto\" only (got \"{run.symmetry}\")")
     if bath.shape == "table" and not bath.table:
         raise ConfigError("bath.table: shape \"table\" needs bath.table = \"path/to/file\"")
     if bath.shape != "table" and bath.table:

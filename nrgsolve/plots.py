@@ -91,8 +91,9 @@ def _spin_text(twice: int) -> str:
     return str(f.numerator) if f.denominator == 1 else f"{f.numerator}/{f.denominator}"
 
 
-def _level_label(q, twice_s, symmetry) -> str:
-    return f"({int(q)}, {_spin_text(twice_s)})"
+def _level_label(q, twice_s, twice_iso=None) -> str:
+    first = str(int(q)) if twice_iso is None else ",".join(_spin_text(i) for i in twice_iso)
+    return f"({first}, {_spin_text(twice_s)})"
 
 
 def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
@@ -107,7 +108,7 @@ def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
         mode) drawn per iteration, >= 1.
     labelled : int
         The lowest this-many levels of the last iteration of each panel get a
-        quantum-number label (Q, S) or (Q, S_z); coinciding levels share one.
+        quantum-number label (Q, S), (Q, S_z) or, in the isospin mode, (I, S); coinciding levels share one.
     ax : pair of Axes, optional
         Axes for the even and the odd iterations (default: a new figure with two panels).
 
@@ -130,8 +131,11 @@ def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
     E = np.asarray(flow["energy"], dtype=float)[:, :levels]
     Q = np.asarray(flow["charge"])[:, :levels]
     S = np.asarray(flow["twice_spin"])[:, :levels]
-    symmetry = str(result.provenance.get("symmetry", "su2"))
-    spin_name = "S" if symmetry == "su2" else "S_z"
+    from .engine.symmetry import make_symmetry
+    # the label names of the symmetry used (files without the attribute were su2 runs)
+    names = make_symmetry(str(result.provenance.get("symmetry", "su2"))).label_names
+    iso = np.asarray(flow["twice_isospin"])[:, :levels] if "twice_isospin" in flow else None
+    first_name, spin_name = ("I" if iso is not None else "Q"), names[-1]
     if ax is None:
         fig, axes = new_figure(1, 2, figsize=(9.0, 4.6), sharey=True)
     else:
@@ -155,7 +159,7 @@ def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
             e = E[last, k]
             if not np.isfinite(e):
                 continue
-            lab = _level_label(Q[last, k], S[last, k], symmetry)
+            lab = _level_label(Q[last, k], S[last, k], None if iso is None else iso[last, k])
             if groups and abs(groups[-1][0] - e) < 0.02 * max(top, 1e-12):
                 if lab not in groups[-1][1]:
                     groups[-1][1].append(lab)
@@ -173,7 +177,7 @@ def plot_flow(result: Result, levels: int = 12, labelled: int = 8, ax=None):
     axes[0].set_ylabel(r"$E/\omega_N$ (from the ground state)")
     _shade_fixed_points(axes, result)
     model = result.provenance.get("model", "")
-    fig.suptitle(f"{result.label}: level flow, {model}, labels ({'Q'}, ${spin_name}$)", fontsize=10)
+    fig.suptitle(f"{result.label}: level flow, {model}, labels (${first_name}$, ${spin_name}$)", fontsize=10)
     return fig
 
 

@@ -70,7 +70,10 @@ BASELINE_BYTES = 300e6
 
 # (largest block / kept, sum of blocks / kept) by (symmetry, channels); see the module docstring.
 _BLOCKS = {("su2", 1): (0.21, 1.64), ("abelian", 1): (0.38, 4.06), ("su2", 2): (0.29, 6.35),
-           ("abelian", 2): (0.38, 16.0)}
+           ("abelian", 2): (0.38, 16.0),
+           # isospin, one channel: symmetric Anderson model, 2000 kept, Λ = 2 (largest block 195, sum 1210);
+           # two channels: not measured, the su2 fractions (an upper bound)
+           ("isospin", 1): (0.10, 0.61), ("isospin", 2): (0.29, 6.35)}
 
 
 @dataclass(frozen=True)
@@ -163,7 +166,9 @@ def estimate(spec, bath=None) -> ResourceEstimate:
         kept = 1.2 * imp.declaration.impurity_states(imp) * kept_below_cutoff(r.energy_cutoff, d.Lambda, channels)
     else:
         kept = float(r.kept_states)
-    largest_frac, sum_frac = _BLOCKS[(r.symmetry, channels)]
+    # "auto" is resolved only when the run starts: estimate with su2 (abelian in a field), an upper bound
+    name = r.symmetry if r.symmetry != "auto" else ("abelian" if imp.field != 0.0 else "su2")
+    largest_frac, sum_frac = _BLOCKS[(name, channels)]
     runs = 2 if r.bath_reference == "nrg" else 1
     seconds, largest, peak_kept, peak_bytes, vectors = 0.0, 0.0, 0.0, 0.0, 0.0
     for n_sites in sites:

@@ -72,6 +72,8 @@ QUANTITIES: tuple[Quantity, ...] = (
     _Q("flow", "degeneracy", "degeneracy", "states", "degeneracy", "states in each level"),
     _Q("flow", "channel_charge", "channel_charge", "electrons from half filling, per channel", "$Q_k$",
        "charge per channel (two channels)"),
+    _Q("flow", "twice_isospin", "twice_isospin", "2I per channel (isospin mode)", "$2I_k$",
+       "isospin of each level's multiplet, per channel"),
     _Q("flow", "fixed_point", "fixed_point", "label", "fixed point", "fixed point of each iteration (\"\": crossover)"),
     _Q("flow", "fixed_point_error", "fixed_point_error", "omega_N", r"$\Delta E/\omega_N$",
        "distance of the levels from the fixed-point spectrum"),
@@ -387,6 +389,8 @@ def _flow_groups(flow) -> tuple[Group, Group]:
          "degeneracy": flow.degeneracy}
     if getattr(flow, "channel_charge", None) is not None:
         f["channel_charge"] = flow.channel_charge
+    if getattr(flow, "twice_isospin", None) is not None:
+        f["twice_isospin"] = flow.twice_isospin
     d = {"iteration": flow.iteration, "kept_states": flow.kept_states, "truncation_energy": flow.truncation_energy,
          "discarded_weight": flow.discarded_weight, "block_dimensions": flow.block_dimensions}
     return f, Group("diagnostics", d)

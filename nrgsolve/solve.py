@@ -156,13 +156,14 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     n_channels = decl.channels(spec.impurity)
     sym = make_symmetry(r.symmetry, n_channels)
     initial = sym.from_explicit(block)
+    onsite = np.zeros_like(chain.onsite) if sym.particle_hole_only else chain.onsite   # exactly symmetric chain
     first = block.first_site
 
     def scale(n):
         return energy_scale(n, d.Lambda, z, D, d.scheme)
 
     first_hop = [block.first_hopping[k] for k in range(n_channels)] if first == 0 else None
-    steps = chain_steps(chain.onsite, chain.hopping, scale, first, n_sites, n_channels, first_hop)
+    steps = chain_steps(onsite, chain.hopping, scale, first, n_sites, n_channels, first_hop)
     settings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                               flow_levels=r.flow_levels,
                               particle_hole_symmetric=is_particle_hole_symmetric(spec, bath))
@@ -181,25 +182,34 @@ def _solve_twist(spec: RunSpec, z: float, progress=None, bath=None) -> TwistResu
     bath_records = None
     diag = res.diag_seconds
     if r.bath_reference == "nrg":
-        bare = sym.from_explicit(bare_chain_block(float(chain.onsite[0]), n_channels))
+        bare = sym.from_explicit(bare_chain_block(float(onsite[0]), n_channels))
         # the bath run starts at site 1 with the chain's own hopping t_0
-        bsteps = chain_steps(chain.onsite, chain.hopping, scale, 1, n_sites, n_channels)
+        bsteps = chain_steps(onsite, chain.hopping, scale, 1, n_sites, n_channels)
         # full density matrix: the bath run discards above the impurity run's truncation energy of each
         # iteration, so that both runs drop the same part of the spectrum and the method's errors cancel
         cutoffs = {rec.index: rec.truncation_energy for rec in res.records} if fdm else None
         bsettings = EngineSettings(kept_states=r.kept_states, energy_cutoff=r.energy_cutoff, beta_bar=r.beta_bar,
                                    flow_levels=r.flow_levels, particle_hole_symmetric=bath.is_particle_hole_symmetric(),
                                    cutoffs=cutoffs)
-        bres = run_chain(bare, 0, scale(0), sym, bsteps, bsettings, None)
-        bath_records = bres.records
-        diag += bres.diag_seconds
+        from .bath_cache import cached_bath_records
+        parts = {"symmetry": sym.name, "channels": n_channels, "onsite0": float(onsite[0]),
+                 "steps": [(st.index, list(np.ravel(st.onsite)), list(np.ravel(st.hopping)), st.scale) for st in bsteps],
+                 "onsite": np.asarray(onsite, dtype=float), "hopping": np.asarray(chain.hopping, dtype=float)}
+        bres = []
+
+        def bath_run():
+            bres.append(run_chain(bare, 0, scale(0), sym, bsteps, bsettings, None))
+            return bres[0].records
+
+        bath_records, _ = cached_bath_records(bath_run, parts, bsettings, use_cache=r.bath_cache)
+        diag += bres[0].diag_seconds if bres else 0.0
     if fdm:
         thermo = impurity_thermodynamics_fdm(res.records, run_temperatures(spec, D), n_channels=n_channels,
-                                             abelian=(r.symmetry == "abelian"), bath_records=bath_records,
+                                             bath_records=bath_records,
                                              chain_onsite=chain.onsite, chain_hopping=chain.hopping)
     else:
         thermo = impurity_thermodynamics(res.records, chain.onsite, chain.hopping, r.beta_bar,
-                                         abelian=(r.symmetry == "abelian"), n_channels=n_channels,
+                                         n_channels=n_channels,
                                          bath_records=bath_records)
     flow = flow_spectrum(res.records, r.flow_levels)
     return TwistResult(z=z, onsite=np.asarray(chain.onsite), hopping=np.asarray(chain.hopping),
@@ -320,6 +330,8 @@ def solve(spec: RunSpec, progress=None, workers: int | None = None) -> RunResult
     RunResult
     """
     t0 = time.perf_counter()
+    from .symmetry_choice import with_resolved_symmetry
+    spec = with_resolved_symmetry(spec, bath_from_spec(spec))       # "auto" -> the symmetry actually used
     main = _solve_once(spec, progress, workers)
     if not spec.run.error_estimate:
         return main
@@ -391,7 +403,7 @@ def fixed_points_of_twist(spec: RunSpec, twist: TwistResult, bath):
     labelled = identify_fixed_points(
         fl.iteration, fl.energy, fl.charge, fl.twice_spin, twist.onsite, twist.hopping, scales,
         charged=imp.declaration.impurity_level, twice_impurity_spin=imp.declaration.twice_impurity_spin(imp),
-        n_channels=imp.declaration.channels(imp), abelian=spec.run.symmetry == "abelian",
+        n_channels=imp.declaration.channels(imp), abelian=make_symmetry(spec.run.symmetry).resolves_sz,
         rho0=rho0, particle_hole_symmetric=is_particle_hole_symmetric(spec, bath),
         channel_charge=fl.channel_charge)
     temps = np.array([energy_scale(int(n), d.Lambda, twist.z, D, d.scheme) for n in fl.iteration]) / spec.run.beta_bar

@@ -6,14 +6,20 @@ Standard problem: symmetric Anderson model (U = 0.1 D, Γ = 0.01 D), flat band,
 symmetry mode it prints the wall time per iteration, the time spent inside
 the dense diagonalizations (LAPACK through scipy.linalg.eigh), their ratio and
 the peak resident memory.  Each case runs in its own process so that the
-memory figures do not mix.  A second part times a standard Kondo run
-(Λ = 2, 1000 kept states, one twist, down to T = 1e-10 D) through the driver.
+memory figures do not mix.  Beside the engine's own diagonalization time it
+prints the time LAPACK alone needs for blocks of the same sizes (random symmetric
+matrices, same driver, one call per block of every iteration), the floor any
+implementation of the same symmetry must pay.  Further parts time a standard
+Kondo run (Λ = 2, 1000 kept states, one twist, down to T = 1e-10 D) and the
+two-channel Kondo model (Λ = 3, β̄ = 1, conventional thermodynamics) through the
+driver, with its residual entropy against ½ ln 2.
 
 Usage::
 
-    python scripts/benchmark.py                      # kept 500 1000 2000 4000, su2 and abelian
+    python scripts/benchmark.py                      # kept 500 1000 2000 4000, isospin, su2 and abelian
     python scripts/benchmark.py --kept 1000 2000 --symmetry su2 --iterations 30
     python scripts/benchmark.py --only-dynamics --kept 1000 --symmetry su2 abelian --iterations 30
+    python scripts/benchmark.py --only-two-channel --two-channel-kept 1500 3000
 """
 
 from __future__ import annotations
@@ -54,9 +60,61 @@ def one_case(kept: int, symmetry: str, iterations: int, driver: str, threads: in
                         EngineSettings(kept_states=kept, driver=driver, particle_hole_symmetric=True))
     wall = time.perf_counter() - t0
     big = max(int(r.block_dims[0]) for r in res.records)
+    with threadpool_limits(limits=threads):
+        lapack = lapack_alone([d for r in res.records for d in r.block_dims], driver)
     return {"kept": kept, "symmetry": symmetry, "iterations": len(res.records), "wall": wall,
-            "diag": res.diag_seconds, "largest_block": big,
+            "diag": res.diag_seconds, "lapack": lapack, "largest_block": big,
             "peak_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}
+
+
+def lapack_alone(dims, driver: str) -> float:
+    """Seconds scipy.linalg.eigh (LAPACK) needs for random symmetric matrices of the given sizes."""
+    import numpy as np
+    import scipy.linalg as sla
+
+    rng = np.random.default_rng(1)
+    total = 0.0
+    for d in dims:
+        d = int(d)
+        if d == 0:
+            continue
+        a = rng.standard_normal((d, d))
+        a += a.T
+        t = time.perf_counter()
+        sla.eigh(a, driver=driver, overwrite_a=True, check_finite=False)
+        total += time.perf_counter() - t
+    return total
+
+
+def two_channel_case(kept: int, symmetry: str) -> dict:
+    """Two-channel Kondo model (ρJ = 0.15 in both channels), Λ = 3, β̄ = 1, conventional thermodynamics,
+    one twist, down to T = 1e-10 D, through the driver: wall time and the lowest-temperature entropy."""
+    import math
+
+    from nrgsolve.config import parse_config
+    from nrgsolve.solve import solve
+
+    spec = parse_config(f"""
+[impurity]
+model = "two-channel-kondo"
+exchange = 0.15
+[discretization]
+Lambda = 3.0
+twists = 1
+[run]
+kept_states = {kept}
+beta_bar = 1.0
+thermodynamics = "conventional"
+lowest_temperature = 1e-10
+symmetry = "{symmetry}"
+bath_cache = false
+""", "benchmark-two-channel")
+    t0 = time.perf_counter()
+    res = solve(spec, workers=1)
+    wall = time.perf_counter() - t0
+    S = float(res.thermo.entropy[0])              # the lowest temperature
+    return {"wall": wall, "diag": sum(t.diag_seconds for t in res.twists), "entropy": S,
+            "deviation": S / (0.5 * math.log(2.0)) - 1.0, "symmetry": res.spec.run.symmetry}
 
 
 def kondo_case() -> dict:
@@ -200,7 +258,8 @@ def dynamics_table(kept: int, symmetry: str, iterations: int, threads: int = 1):
 def main(argv=None):
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--kept", type=int, nargs="+", default=[500, 1000, 2000, 4000])
-    p.add_argument("--symmetry", nargs="+", default=["su2", "abelian"], choices=["su2", "abelian"])
+    p.add_argument("--symmetry", nargs="+", default=["isospin", "su2", "abelian"],
+                   choices=["isospin", "su2", "abelian"])
     p.add_argument("--iterations", type=int, default=25)
     p.add_argument("--driver", default="evd", choices=["evd", "evr", "ev"])
     p.add_argument("--threads", type=int, default=1, help="BLAS threads")
@@ -214,6 +273,13 @@ def main(argv=None):
     p.add_argument("--only-dynamics", action="store_true",
                    help="only the cost of each spectral quantity (impurity, t-matrix, spin-susceptibility) "
                         "relative to the forward run")
+    p.add_argument("--two-channel-kept", type=int, nargs="*", default=[1500],
+                   help="kept states of the two-channel Kondo case (none: skip it)")
+    p.add_argument("--two-channel-symmetry", nargs="+", default=["isospin", "su2"], choices=["isospin", "su2"])
+    p.add_argument("--only-two-channel", action="store_true", help="run only the two-channel case")
+    p.add_argument("--sweep-points", type=int, default=10,
+                   help="points of the Kondo-coupling sweep case (0: skip it)")
+    p.add_argument("--only-sweep", action="store_true", help="run only the sweep case")
     p.add_argument("--case", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     if a.only_dynamics:
@@ -223,8 +289,23 @@ def main(argv=None):
         return 0
     if a.case:
         kept, sym = a.case.split(":")
-        print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads, not a.no_observables)))
+        if kept.startswith("2ch"):
+            print(json.dumps(two_channel_case(int(kept[3:]), sym)))
+        else:
+            print(json.dumps(one_case(int(kept), sym, a.iterations, a.driver, a.threads, not a.no_observables)))
         return 0
+    if a.only_two_channel:
+        run_two_channel(a)
+        return 0
+    if a.only_sweep or a.sweep_points:
+        if a.sweep_points:
+            c = sweep_case(a.sweep_points, 1000)
+            print(f"Kondo sweep, {a.sweep_points} values of ρJ in 0.1 … 0.3 (Λ = 3, 2 twists, 1000 kept, full density "
+                  f"matrix, down to 1e-8 D, one process): {a.sweep_points} independent su2 runs without the bath cache "
+                  f"{c['old']:.1f} s; the sweep with the defaults (auto symmetry, cached bath runs: {c['computed']} "
+                  f"computed, {c['reused']} reused) {c['new']:.1f} s = {c['new'] / c['old']:.2f} x", flush=True)
+        if a.only_sweep:
+            return 0
     if not a.no_thermodynamics:
         c = thermodynamics_case()
         print(f"Kondo model at the defaults (ρJ = 0.15, Λ = 3, 2 twists, 1000 kept, T down to 1e-9 D, one process): "
@@ -236,7 +317,8 @@ def main(argv=None):
             return 0
     print(f"symmetric Anderson model, Λ = 2, {a.iterations} iterations, one twist, LAPACK driver {a.driver}, "
           f"{a.threads} BLAS thread(s), impurity observables {'off' if a.no_observables else 'on'}")
-    print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'wall/diag':>10} {'largest block':>14} {'peak MB':>8}")
+    print(f"{'kept':>6} {'mode':>8} {'s/iter':>8} {'diag s/iter':>12} {'LAPACK s/iter':>14} {'wall/diag':>10} "
+          f"{'wall/LAPACK':>12} {'largest block':>14} {'peak MB':>8}")
     rows = {}
     for kept in a.kept:
         for sym in a.symmetry:
@@ -249,11 +331,15 @@ def main(argv=None):
             r = json.loads(out.stdout)
             rows[(kept, sym)] = r
             n = r["iterations"]
-            print(f"{kept:>6} {sym:>8} {r['wall'] / n:8.3f} {r['diag'] / n:12.3f} {r['wall'] / r['diag']:10.2f} "
-                  f"{r['largest_block']:>14} {r['peak_mb']:8.0f}", flush=True)
+            print(f"{kept:>6} {sym:>8} {r['wall'] / n:8.3f} {r['diag'] / n:12.3f} {r['lapack'] / n:14.3f} "
+                  f"{r['wall'] / r['diag']:10.2f} {r['wall'] / r['lapack']:12.2f} {r['largest_block']:>14} "
+                  f"{r['peak_mb']:8.0f}", flush=True)
     for kept in a.kept:
-        if (kept, "su2") in rows and (kept, "abelian") in rows:
-            print(f"kept {kept}: abelian / su2 wall time = {rows[(kept, 'abelian')]['wall'] / rows[(kept, 'su2')]['wall']:.1f}")
+        for other in ("abelian", "isospin"):
+            if (kept, "su2") in rows and (kept, other) in rows:
+                print(f"kept {kept}: {other} / su2 wall time = "
+                      f"{rows[(kept, other)]['wall'] / rows[(kept, 'su2')]['wall']:.2f}")
+    run_two_channel(a)
     if not a.no_kondo:
         k = kondo_case()
         print(f"standard Kondo run (ρJ = 0.15, Λ = 2, 1000 kept, one twist, T down to 1e-10 D, impurity and bath runs): "
@@ -267,6 +353,60 @@ def main(argv=None):
                       f"spectral {sc['spectral']:.1f} s, spectral/forward = {sc['spectral'] / sc['forward']:.2f}",
                       flush=True)
     return 0
+
+
+def sweep_case(points: int, kept: int) -> dict:
+    """A sweep over the Kondo coupling ρJ = 0.1 … 0.3 (defaults otherwise: Λ = 3, 2 twists, full density
+    matrix, down to 1e-8 D, one process): ``points`` independent runs as before this change (su2, no bath
+    cache) against the sweep with the new defaults (symmetry "auto", bath runs cached in a fresh folder)."""
+    import os
+    import tempfile
+
+    import numpy as np
+
+    from nrgsolve.config import parse_config
+    from nrgsolve.solve import solve
+    from nrgsolve.sweep import run_sweep
+    from nrgsolve import bath_cache
+
+    values = [float(v) for v in np.linspace(0.1, 0.3, points)]
+    base = f"""
+[impurity]
+model = "kondo"
+exchange = 0.2
+[run]
+kept_states = {kept}
+lowest_temperature = 1e-8
+"""
+    t0 = time.perf_counter()
+    for v in values:
+        solve(parse_config(base.replace("exchange = 0.2", f"exchange = {v!r}")
+                           + 'symmetry = "su2"\nbath_cache = false\n', "old"), workers=1)
+    old = time.perf_counter() - t0
+    with tempfile.TemporaryDirectory() as cache, tempfile.TemporaryDirectory() as out:
+        os.environ["NRGSOLVE_CACHE_DIR"] = cache
+        spec = parse_config(base + f'\n[sweep]\n"impurity.exchange" = {values!r}\n', "sweep.toml")
+        bath_cache.STATS.computed = bath_cache.STATS.reused = 0
+        t0 = time.perf_counter()
+        run_sweep(spec, out, jobs=1)
+        new = time.perf_counter() - t0
+    return {"old": old, "new": new, "computed": bath_cache.STATS.computed, "reused": bath_cache.STATS.reused}
+
+
+def run_two_channel(a):
+    """The two-channel Kondo case, each run in its own process."""
+    for kept in a.two_channel_kept:
+        for sym in a.two_channel_symmetry:
+            out = subprocess.run([sys.executable, __file__, "--case", f"2ch{kept}:{sym}"], capture_output=True,
+                                 text=True)
+            if out.returncode != 0:
+                print(f"two-channel Kondo, kept {kept}, {sym}: failed: {out.stderr.strip().splitlines()[-1]}")
+                continue
+            r = json.loads(out.stdout)
+            print(f"two-channel Kondo (ρJ = 0.15, Λ = 3, β̄ = 1, conventional, one twist, T down to 1e-10 D, "
+                  f"bath run included), kept {kept}, {sym}: {r['wall']:.1f} s wall, {r['diag']:.1f} s in "
+                  f"diagonalizations, S_imp(lowest T) = {r['entropy']:.4f} = ½ ln 2 × (1 {r['deviation']:+.3%})",
+                  flush=True)
 
 
 if __name__ == "__main__":

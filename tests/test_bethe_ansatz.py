@@ -6,6 +6,7 @@ scipy quadrature, an independent method.
 """
 
 import math
+import sys
 
 import numpy as np
 import pytest
@@ -246,6 +247,6 @@ def test_cache_folder_is_the_users_cache_unless_overridden(monkeypatch, tmp_path
     monkeypatch.setenv("NRGSOLVE_CACHE_DIR", str(tmp_path / "mine"))
     assert ba.default_cache_dir() == tmp_path / "mine"
     monkeypatch.delenv("NRGSOLVE_CACHE_DIR")
-    monkeypatch.setattr(ba.sys, "platform", "linux")
+    monkeypatch.setattr(sys, "platform", "linux")
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
     assert ba.default_cache_dir() == tmp_path / "xdg" / "nrgsolve"

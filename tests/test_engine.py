@@ -7,6 +7,7 @@ from scipy.linalg import eigvalsh_tridiagonal
 
 from nrgsolve.engine.reference import kondo_dense_spectrum, anderson_dense_spectrum
 from nrgsolve.errors import NrgInputError, NrgNumericalError
+from nrgsolve.engine import make_symmetry
 from conftest import many_body_levels, expand_multiplets, omega, assert_same_levels
 from engine_helpers import run_kondo, run_anderson, closed_chain
 
@@ -239,7 +240,7 @@ def test_charge_symmetrization_averages_mirror_blocks():
     self-mirrored blocks alone (common practice, no source)."""
     from nrgsolve.engine.iterate import _symmetrize_charge
     E = {(1, 0): np.array([0.0, 1.0 + 3e-9]), (-1, 0): np.array([2e-9, 1.0]), (0, 1): np.array([0.5])}
-    _symmetrize_charge(E)
+    _symmetrize_charge(E, make_symmetry("su2"))
     np.testing.assert_allclose(E[(1, 0)], [1e-9, 1.0 + 1.5e-9], rtol=0, atol=1e-15)
     np.testing.assert_array_equal(E[(1, 0)], E[(-1, 0)])
     np.testing.assert_array_equal(E[(0, 1)], [0.5])

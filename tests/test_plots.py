@@ -60,10 +60,13 @@ def test_flow_labels_are_the_quantum_numbers_of_the_last_iteration(stored):
     for ax, parity in zip(fig.axes[:2], (0, 1)):
         last = np.flatnonzero(N % 2 == parity)[-1]
         labels = " ".join(_texts(ax))
+        half = lambda t: str(t // 2) if t % 2 == 0 else f"{t}/2"
         for k in range(4):
-            q, s2 = int(r.flow["charge"][last, k]), int(r.flow["twice_spin"][last, k])
-            spin = str(s2 // 2) if s2 % 2 == 0 else f"{s2}/2"
-            assert f"({q}, {spin})" in labels
+            s2 = int(r.flow["twice_spin"][last, k])
+            # (Q, S), or (I, S) when the run used the isospin symmetry (the default for this symmetric model)
+            first = (",".join(half(int(i)) for i in r.flow["twice_isospin"][last, k]) if "twice_isospin" in r.flow
+                     else str(int(r.flow["charge"][last, k])))
+            assert f"({first}, {half(s2)})" in labels
 
 
 def test_flow_of_the_strong_coupling_fixed_point_even_ground_state_is_a_singlet(stored):

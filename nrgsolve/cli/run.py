@@ -34,6 +34,8 @@ def cmd_run(args) -> int:
                             f"use 'nrgsolve sweep {args.config}', or remove the [sweep] table")
     if args.error_estimate and not spec.run.error_estimate:
         spec = spec.with_value("run.error_estimate", True)
+    if args.no_cache:
+        spec = spec.with_value("run.bath_cache", False)
     out = _output_path(spec, args.output)
     flag = "--output" if args.output is not None else "output.file"
     if not str(out).endswith((".h5", ".hdf5")):
@@ -58,7 +60,7 @@ def cmd_run(args) -> int:
         scheme = d.scheme + ((" with A_Λ correction" if d.wilson_correction else " without A_Λ correction")
                              if d.scheme == "wilson" else "")
         print(f"model {spec.impurity.model}, Λ = {d.Lambda:g} ({scheme}), {d.twists} twist(s), "
-              f"kept states {spec.run.kept_states}, symmetry {spec.run.symmetry}")
+              f"kept states {spec.run.kept_states}, symmetry {result.spec.run.symmetry}")
         print(f"thermodynamics: {spec.run.thermodynamics}; Kondo temperature (Wilson): χ(0) = w/4T_K, "
               f"w = {WILSON_NUMBER:.4f}; (crossover): T_K χ(T_K) = 0.07")
         for line in summary_lines(headline_values(result), result.uncertainties):
@@ -87,4 +89,7 @@ def add_command(sub) -> None:
     r.add_argument("--error-estimate", action="store_true",
                    help="also run with 1.5 x kept states and at a coarser Λ with twice the twists, and give each "
                         "headline number an uncertainty (same as run.error_estimate = true; about 3 x the time)")
+    r.add_argument("--no-cache", action="store_true",
+                   help="compute the bath-only reference run afresh, without reading or writing the cache folder "
+                        "(same as run.bath_cache = false)")
     r.set_defaults(func=cmd_run)

@@ -19,6 +19,8 @@ def cmd_sweep(args) -> int:
     from ..workers import Terminated
 
     spec = load_config(args.config)
+    if args.no_cache:
+        spec = spec.with_value("run.bath_cache", False)
     if args.output_folder is not None and not args.output_folder.strip():
         raise NrgInputError("--output-folder: got an empty folder name")
     folder = Path(args.output_folder) if args.output_folder else default_folder(spec)
@@ -70,5 +72,8 @@ def add_command(sub) -> None:
                    help="folder for point_NNNN.h5 and index.csv (default: [sweep] folder, else <config name>_sweep)")
     s.add_argument("--force", action="store_true", help="recompute points whose files already exist")
     s.add_argument("--quiet", "-q", action="store_true", help="no progress bar, no summary")
+    s.add_argument("--no-cache", action="store_true",
+                   help="compute every bath-only reference run afresh, without reading or writing the cache "
+                        "folder (same as run.bath_cache = false)")
     s.set_defaults(func=cmd_sweep)
 

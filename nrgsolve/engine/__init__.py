@@ -6,10 +6,11 @@ Public names: :func:`run_chain` (the kernel), :class:`EngineSettings`,
 """
 
 from .fock import ExplicitBlock, FockSpace
-from .symmetry import make_symmetry, Su2Symmetry, AbelianSymmetry, BlockSet
+from .symmetry import make_symmetry, Symmetry, Su2Symmetry, AbelianSymmetry, IsospinSymmetry, BlockSet
 from .iterate import EngineSettings, IterationRecord, EngineResult, run_chain
 
 __all__ = [
-    "ExplicitBlock", "FockSpace", "make_symmetry", "Su2Symmetry", "AbelianSymmetry", "BlockSet",
+    "ExplicitBlock", "FockSpace", "make_symmetry", "Symmetry", "Su2Symmetry", "AbelianSymmetry",
+    "IsospinSymmetry", "BlockSet",
     "EngineSettings", "IterationRecord", "EngineResult", "run_chain",
 ]

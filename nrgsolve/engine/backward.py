@@ -59,9 +59,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import NrgInputError
-from .clebsch import cg
 from .iterate import run_chain
-from .operators import transform_block_operator, operator_targets, SPINOR, VECTOR
+from .operators import transform_block_operator, SPINOR, VECTOR
 
 __all__ = ["DiscreteSpectrum", "TensorOperator", "spectral_run", "impurity_operators", "spinor_operator",
            "spin_vector_operator", "component_names", "DEFAULT_MEMORY_BUDGET", "DEFAULT_BINS_PER_DECADE"]
@@ -118,33 +117,10 @@ def spinor_operator(sym, block, creators: dict) -> TensorOperator:
 def spin_vector_operator(sym, block, sz) -> TensorOperator:
     """The spin-vector operator whose z component is ``sz`` (explicit matrix on ``block.space``).
 
-    In su2 mode the reduced element follows from the z component alone:
-    ⟨S'‖S‖S⟩ = ⟨S' M|S_z|S M⟩ / ⟨S M; 1 0|S' M⟩ with M = min(S, S') (non-zero
-    Clebsch–Gordan coefficient for every allowed pair, S = S' = 0 excluded).
+    The symmetry resolves it (:meth:`Symmetry.spin_vector`): with spin SU(2) the reduced element follows
+    from the z component alone, ⟨S'‖S‖S⟩ = ⟨S' M|S_z|S M⟩ / ⟨S M; 1 0|S' M⟩ with M = min(S, S').
     """
-    space = block.space
-    out = {}
-    if sym.name == "abelian":
-        secs = {key: v for key, _e, v in sym._sectors(space, block.hamiltonian)}
-        for L, v in secs.items():
-            m = v.T @ sz @ v
-            if np.abs(m).max(initial=0) > 1e-12:
-                out[(L, L)] = m
-        return TensorOperator(VECTOR, {"z": out})
-    comps = {key: c for key, _e, c in sym._multiplets(space, block.hamiltonian)}
-    for L, cL in comps.items():
-        for Lp in operator_targets(sym, None, L, VECTOR):
-            if Lp not in comps:
-                continue
-            S2, Sp2 = L[-1], Lp[-1]
-            M2 = min(S2, Sp2)
-            c = cg(S2, M2, 2, 0, Sp2, M2)
-            if c == 0.0:
-                continue
-            red = comps[Lp][(Sp2 - M2) // 2].T @ sz @ cL[(S2 - M2) // 2] / c
-            if np.abs(red).max(initial=0) > 1e-12:
-                out[(Lp, L)] = red
-    return TensorOperator(VECTOR, {"z": out})
+    return TensorOperator(VECTOR, {"z": sym.spin_vector(block, sz)})
 
 
 def impurity_operators(sym, block, self_energy: bool = False) -> dict:
@@ -168,13 +144,8 @@ def component_names(sym, op: TensorOperator) -> tuple:
     ``"up"``/``"down"`` (abelian; ``"up1"`` … for further channels), ``"z"`` for the spin vector."""
     if not op.fermionic:
         return ("z",)
-    out = []
-    for c in op.components:
-        if sym.name == "su2":
-            out.append("spin" if c == 0 else f"spin{c}")
-        else:
-            out.append(("up" if c[1] > 0 else "down") + (f"{c[0]}" if c[0] else ""))
-    return tuple(out)
+    names = dict(zip(sym.components, sym.component_names))
+    return tuple(names[c] for c in op.components)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -547,7 +518,6 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
     total = np.zeros((nX, nT, nC))
     lesser = np.zeros((nX, nT, nC))
     inverse = np.zeros((nX, nT, nC))
-    su2 = sym.name == "su2"
     # correlators grouped by (rank, component): one pass over the block pairs per group
     groups = {}
     for xi, (_name, o1, o2) in enumerate(correlators):
@@ -593,7 +563,7 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                 keys = bins.keys(om_flat)
                 apart = np.abs(om_flat) > tol
                 inv_om = np.where(apart, 1.0 / np.where(apart, om_flat, 1.0), 0.0)
-                fac = sh["mult"][Ls] / (rank + 1.0) if su2 else 1.0
+                fac = sym.spectral_weight_factor(Ls, rank)
                 for t in active:
                     rK_s, rK_r = rhoK[t].get(Ls), rhoK[t].get(Lr)
                     rD_s, rD_r = rhoD[t][i][Ls], rhoD[t][i][Lr]

@@ -28,7 +28,7 @@ import scipy.linalg as sla
 from ..errors import NrgNumericalError, NrgInputError
 from .symmetry import BlockSet
 
-__all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain"]
+__all__ = ["chain_steps", "EngineSettings", "IterationRecord", "EngineResult", "Step", "run_chain", "cut_energy"]
 
 
 @dataclass(frozen=True)
@@ -145,6 +145,8 @@ class IterationRecord:
     block_dims: np.ndarray
     diag_seconds: float = 0.0
     channel_charge: np.ndarray | None = None     # (states, channels) charge of each channel, several channels only
+    twice_isospin: np.ndarray | None = None      # (states, channels) 2I of each channel, isospin mode only
+    twice_sz: np.ndarray | None = None           # 2S_z of each state when the labels resolve it (abelian mode)
 
 
 @dataclass
@@ -176,7 +178,11 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
         lo, hi = max(lo, 1), min(hi, len(Es) - 1)
         if hi > lo:
             gaps = Es[lo:hi + 1] - Es[lo - 1:hi]          # gap below each candidate first-discarded level
-            n_keep = lo + int(np.argmax(gaps))
+            # equal gaps (equally spaced levels) are common: roundoff must not decide between them, so
+            # among the widest (within degeneracy_tol) take the cut nearest to the given energy
+            best = np.flatnonzero(gaps >= gaps.max() - settings.degeneracy_tol)
+            mids = 0.5 * (Es[lo + best] + Es[lo + best - 1])
+            n_keep = lo + int(best[np.argmin(np.abs(mids - cutoff))])
         else:
             n_keep = int(np.searchsorted(Es, cutoff, side="right"))
     elif cutoff is not None:
@@ -202,17 +208,47 @@ def _truncate(energies_by_block, sym, settings: EngineSettings, first: bool, ind
     return kept, float(ecut), int(cum[n_keep - 1])
 
 
+class _SingleStates:
+    """A stand-in symmetry whose labels hold one state each (for :func:`cut_energy`)."""
+
+    @staticmethod
+    def multiplicity(label) -> int:
+        return 1
+
+
+def cut_energy(energies, settings: EngineSettings, cutoff: float) -> float:
+    """The truncation energy the engine chooses for ``energies`` (units of ω_N, from the ground state)
+    when it is asked to follow ``cutoff`` (see ``EngineSettings.cutoffs``; inf: nothing discarded).
+
+    The same rule as inside :func:`run_chain`; used to check whether a stored run followed the same
+    truncation.  Multiplicities do not enter this rule.
+    """
+    from dataclasses import replace
+    _, ecut, _ = _truncate({0: np.asarray(energies, dtype=float)}, _SingleStates,
+                           replace(settings, cutoffs={0: float(cutoff)}), first=False, index=0)
+    return ecut
+
+
 def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settings, dims, dsec):
+    """One record per iteration; every block eigenstate appears once per charge multiplet of its label
+    (:meth:`Symmetry.levels`), so the observables see (charge, spin) multiplets in every mode."""
     labels = list(energies)
-    E = np.concatenate([energies[L] for L in labels])
-    mult = np.concatenate([np.full(len(energies[L]), sym.multiplicity(L)) for L in labels])
-    charge = np.concatenate([np.full(len(energies[L]), sym.charge(L)) for L in labels])
-    tws = np.concatenate([np.full(len(energies[L]), sym.twice_spin(L)) for L in labels])
-    ssq = np.concatenate([np.full(len(energies[L]), sym.spin_square_over_three(L)) for L in labels])
-    sc = {name: np.concatenate([d[L] for L in labels]) for name, d in scalars_diag.items()}
+    views = {L: sym.levels(L) for L in labels}
+    rep = lambda f, L: np.repeat(np.asarray([f(v) for v in views[L]]), len(energies[L]), axis=0)
+    E = np.concatenate([np.tile(energies[L], len(views[L])) for L in labels])
+    mult = np.concatenate([rep(lambda v: v.multiplicity, L) for L in labels]).astype(int)
+    charge = np.concatenate([rep(lambda v: v.charge, L) for L in labels]).astype(int)
+    tws = np.concatenate([rep(lambda v: v.twice_spin, L) for L in labels]).astype(int)
+    ssq = np.concatenate([rep(lambda v: v.spin_square, L) for L in labels]).astype(float)
+    sc = {name: np.concatenate([np.tile(d[L], len(views[L])) for L in labels]) for name, d in scalars_diag.items()}
     chq = None
     if sym.n_channels > 1:
-        chq = np.concatenate([np.tile(np.asarray(L[:-1], dtype=int), (len(energies[L]), 1)) for L in labels])
+        chq = np.concatenate([np.asarray(rep(lambda v: v.channel_charge, L), dtype=int).reshape(-1, sym.n_channels)
+                              for L in labels])
+    iso = None
+    if views[labels[0]][0].twice_isospin is not None:
+        iso = np.concatenate([np.asarray(rep(lambda v: v.twice_isospin, L), dtype=int).reshape(-1, sym.n_channels)
+                              for L in labels])
     order = np.argsort(E, kind="stable")
     kept, ecut, nkept = kept_info
     w = mult * np.exp(-settings.beta_bar * E)
@@ -222,14 +258,15 @@ def _record(index, scale, ground, energies, sym, kept_info, scalars_diag, settin
         charge=charge[order], twice_spin=tws[order], spin_sq=ssq[order],
         scalars={k: v[order] for k, v in sc.items()}, kept_states=nkept, truncation_energy=ecut,
         discarded_weight=disc, block_dims=np.asarray(sorted(dims, reverse=True), dtype=int), diag_seconds=dsec,
-        channel_charge=None if chq is None else chq[order])
+        channel_charge=None if chq is None else chq[order], twice_isospin=None if iso is None else iso[order],
+        twice_sz=tws[order] if sym.resolves_sz else None)
 
 
-def _symmetrize_charge(energies):
-    """Average the spectra of mirror blocks (Q, X) and (−Q, X) in place."""
+def _symmetrize_charge(energies, sym):
+    """Average the spectra of mirror blocks (charges reversed, :meth:`Symmetry.mirror`) in place."""
     for L in list(energies):
-        M = tuple(-q for q in L[:-1]) + (L[-1],)
-        if M != L and M in energies and L < M and len(energies[M]) == len(energies[L]):
+        M = sym.mirror(L)
+        if M is not None and M != L and M in energies and L < M and len(energies[M]) == len(energies[L]):
             avg = 0.5 * (energies[L] + energies[M])
             energies[L] = avg
             energies[M] = avg.copy()
@@ -248,7 +285,7 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
         Chain index N of the initial block (−1 if it holds no chain site).
     initial_scale : float
         ω of the initial block (units of D).
-    sym : Su2Symmetry or AbelianSymmetry
+    sym : Symmetry
     steps : sequence of Step
         The sites to add, in order.
     settings : EngineSettings
@@ -299,7 +336,14 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
     prev_scale = initial_scale
     first = initial_index < 0
     site = sym.site
-    n_site = [np.array([s.label[k] + 1 for k in range(sym.n_channels)], dtype=float) for s in site]
+    n_site = [sym.site_occupation(a) for a in range(len(site))]
+    hop_pairs = {(b, a) for a in range(len(site)) for b in range(len(site)) if sym.hop_connects(a, b)}
+    if sym.particle_hole_only:
+        for st in steps:
+            if np.max(np.abs(st.onsite)) > 1e-10 * st.scale:
+                raise NrgInputError(f"run.symmetry: got \"{sym.name}\"; chain site {st.index} has the on-site "
+                                    f"energy {np.max(np.abs(st.onsite)):.3g} D ≠ 0 (the bath is not particle-hole "
+                                    f"symmetric)")
     for st in steps:
         ratio = prev_scale / st.scale
         eps = np.asarray(st.onsite, dtype=float) / st.scale
@@ -325,17 +369,16 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
             for (Lo, b) in subs:
                 ro, no = offs[(Lo, b)]
                 for (Li, a) in subs:
-                    if site[b].n_fermions != site[a].n_fermions - 1:
+                    if (b, a) not in hop_pairs:
                         continue
                     ri, ni = offs[(Li, a)]
                     for comp in sym.components:
                         M = F[comp].get((Lo, Li))
                         if M is None:
                             continue
-                        c = sym.hop_coef(comp, Li, a, Lo, b, Ln)
+                        c = sym.hop_coef(comp, Li, a, Lo, b, Ln, st.index)
                         if c != 0.0:
-                            k = comp[0] if isinstance(comp, tuple) else comp
-                            H[ro:ro + no, ri:ri + ni] += (hop[k] * c) * M
+                            H[ro:ro + no, ri:ri + ni] += (hop[sym.component_channel(comp)] * c) * M
             H += H.T
             H[np.diag_indices(pos)] += diag
             t0 = time.perf_counter()
@@ -346,7 +389,7 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
             new_E[Ln], new_U[Ln] = e, U
             dims.append(pos)
         if settings.particle_hole_symmetric:
-            _symmetrize_charge(new_E)
+            _symmetrize_charge(new_E, sym)
         e0 = min(float(e.min()) for e in new_E.values())
         for Ln in new_E:
             new_E[Ln] = new_E[Ln] - e0
@@ -386,12 +429,12 @@ def run_chain(initial: BlockSet, initial_index: int, initial_scale: float, sym, 
                 for (L, a) in subs:
                     ri, ni = offsets[Li][(L, a)]
                     for b, s in enumerate(site):
-                        if s.n_fermions != site[a].n_fermions + 1:
+                        if (a, b) not in hop_pairs:
                             continue
                         for Lo in sym.combine(L, s.label):
                             if Lo not in targets or new_kept.get(Lo, 0) == 0 or (L, b) not in offsets[Lo]:
                                 continue
-                            c = sym.site_coef(comp, L, a, Li, b, Lo)
+                            c = sym.site_coef(comp, L, a, Li, b, Lo, st.index)
                             if c == 0.0:
                                 continue
                             if Lo not in X:

@@ -30,7 +30,8 @@ m_1 = M − m_a, m_1' = m_1 + σ.  This is the usual 6j recoupling of a tensor
 acting on the first factor of a coupled product (Krishna-murthy, Wilkins &
 Wilson 1980; Tóth et al. 2008), here evaluated numerically from
 Clebsch–Gordan coefficients as :meth:`Su2Symmetry.site_coef` does, so no
-closed formula has to be trusted.
+closed formula has to be trusted.  Each symmetry implements it as
+:meth:`nrgsolve.engine.symmetry.Symmetry.block_op_coef`.
 
 The transformation kernel :func:`transform_block_operator` is a pure
 function of arrays: it takes the operator's matrices in the kept basis of
@@ -43,7 +44,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from .clebsch import cg
 
 __all__ = ["block_operator_coef", "transform_block_operator", "operator_targets", "SPINOR", "VECTOR"]
 
@@ -54,24 +54,14 @@ VECTOR = 2
 
 
 def operator_targets(sym, comp, label, twice_rank: int = SPINOR) -> list:
-    """Block labels an operator connects ``label`` to.
-
-    Spinors (``twice_rank`` = 1) raise the charge of channel ``comp`` by one
-    (:meth:`f_targets` of the symmetry); the spin vector (``twice_rank`` = 2,
-    component ``comp`` ignored) keeps every charge and changes S by −1, 0, +1
-    in su2 mode (0 → 0 excluded), or keeps the label (its S_z component) in
-    abelian mode.
-    """
-    if twice_rank == SPINOR:
-        return sym.f_targets(comp, label)
-    if sym.name == "abelian":
-        return [tuple(label)]
-    q, s2 = tuple(label[:-1]), int(label[-1])
-    return [q + (t,) for t in (s2 - 2, s2, s2 + 2) if t >= 0 and (t or s2)]
+    """Block labels an operator connects ``label`` to (:meth:`Symmetry.operator_targets`): the creator
+    of channel ``comp`` (``twice_rank`` = 1) or the spin vector (``twice_rank`` = 2)."""
+    return sym.operator_targets(comp, label, twice_rank)
 
 
 def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out, twice_rank: int = SPINOR) -> float:
-    """Recoupling coefficient of a spinor (or spin-vector) operator acting on the old block.
+    """Recoupling coefficient of a spinor (or spin-vector) operator acting on the old block
+    (:meth:`Symmetry.block_op_coef`).
 
     For the spin vector (``twice_rank`` = 2, bosonic: no sign from the site)
     the same formula holds with the rank-1 Clebsch–Gordan coefficients
@@ -79,10 +69,9 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out, twice_ra
 
     Parameters
     ----------
-    sym : Su2Symmetry or AbelianSymmetry
-    comp : int or (int, int)
-        Component (channel in su2 mode, (channel, σ) in abelian mode); the
-        coefficient does not depend on it apart from the selection rules.
+    sym : Symmetry
+    comp : component of ``sym.components``
+        The coefficient does not depend on it apart from the selection rules.
     L_old_in, L_old_out : tuple
         Old block labels (right and left of the operator).
     a : int
@@ -94,38 +83,9 @@ def block_operator_coef(sym, comp, L_old_in, a, L_in, L_old_out, L_out, twice_ra
     -------
     float
         ⟨(L_old_out, a) L_out‖O‖(L_old_in, a) L_in⟩ / ⟨L_old_out‖O‖L_old_in⟩
-        (reduced elements in su2 mode, plain elements in abelian mode).
+        (reduced elements for non-abelian labels, plain elements for abelian ones).
     """
-    site = sym.site[a]
-    sign = -1.0 if (site.n_fermions % 2 and twice_rank % 2) else 1.0
-    if sym.name == "abelian":
-        return sign
-    key = ("blockop", twice_rank, L_old_in[-1], a, L_in[-1], L_old_out[-1], L_out[-1])
-    cache = sym._coef_cache
-    if key in cache:
-        return cache[key]
-    S1, S, S1p, Sp = L_old_in[-1], L_in[-1], L_old_out[-1], L_out[-1]
-    sa = site.label[-1]
-    total = 0.0
-    den = 0.0
-    for sigma in range(twice_rank, -twice_rank - 1, -2):
-        M = Sp - sigma
-        den = cg(S, M, twice_rank, sigma, Sp, Sp)
-        if den != 0.0:
-            break
-    if den != 0.0:
-        for ma in range(sa, -sa - 1, -2):
-            m1 = M - ma
-            m1p = m1 + sigma
-            c1 = cg(S1, m1, sa, ma, S, M)
-            if c1 == 0.0:
-                continue
-            c2 = cg(S1p, m1p, sa, ma, Sp, Sp)
-            c3 = cg(S1, m1, twice_rank, sigma, S1p, m1p)
-            total += c1 * c2 * c3
-        total = sign * total / den
-    cache[key] = total
-    return total
+    return sym.block_op_coef(comp, L_old_in, a, L_in, L_old_out, L_out, twice_rank)
 
 
 def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=None, twice_rank: int = SPINOR):
@@ -133,7 +93,7 @@ def transform_block_operator(sym, comp, F_old, vectors, layout, rows=None, cols=
 
     Parameters
     ----------
-    sym : Su2Symmetry or AbelianSymmetry
+    sym : Symmetry
     comp : int or (int, int)
         Operator component (raises the charge of channel ``comp`` by one).
     F_old : dict (L_old_out, L_old_in) -> ndarray (k_out, k_in)

@@ -62,7 +62,6 @@ import hashlib
 import json
 import math
 import os
-import sys
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -72,6 +71,7 @@ from scipy.sparse.linalg import LinearOperator, gmres
 from scipy.special import spence
 
 from nrgsolve.errors import NrgInputError, NrgNumericalError
+from nrgsolve.user_cache import default_cache_dir
 
 __all__ = [
     "ExactThermodynamics",
@@ -445,20 +445,6 @@ def numerical_settings(channels):
     return {"solver_version": SOLVER_VERSION, "channels": int(channels), "levels": int(levels),
             "spacings": list(SPACINGS), "core_left": -8.0, "core_right": 8.0, "far_left": -1000.0,
             "far_right": float(2 * levels + 10), "growth": 3.0, "tol": 1e-11, "closure": "lorentz"}
-
-
-def default_cache_dir() -> Path:
-    """The user's cache folder for nrgsolve: $NRGSOLVE_CACHE_DIR, else the platform's cache location."""
-    env = os.environ.get("NRGSOLVE_CACHE_DIR")
-    if env:
-        return Path(env)
-    if sys.platform.startswith("win"):
-        base = os.environ.get("LOCALAPPDATA") or Path.home() / "AppData" / "Local"
-    elif sys.platform == "darwin":
-        base = Path.home() / "Library" / "Caches"
-    else:
-        base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
-    return Path(base) / "nrgsolve"
 
 
 def _cache_file(folder: Path, settings: dict) -> Path:

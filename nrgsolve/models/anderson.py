@@ -57,6 +57,7 @@ MODEL = ModelDeclaration(
     impurity_level=True,
     averages=("occupation", "double_occupancy"),
     particle_hole_symmetric=lambda imp: abs(imp.epsilon_d + 0.5 * imp.U) < 1e-15,
+    particle_hole_breaker=lambda imp: f"impurity.level = {imp.epsilon_d:g} ≠ −interaction/2 = {-0.5 * imp.U:g}",
     exact_curve=lambda imp: "no exact curve for model \"anderson\"; exact curves exist for kondo, "
                             "spin-kondo and two-channel-kondo",
     order=1,

@@ -97,6 +97,7 @@ MODEL = ModelDeclaration(
     build=build_kondo,
     averages=("spin_correlation",),
     particle_hole_symmetric=lambda imp: imp.potential_scattering == 0.0,
+    particle_hole_breaker=lambda imp: f"impurity.potential_scattering = {imp.potential_scattering:g} ≠ 0",
     exact_curve=kondo_exact_curve,
     order=0,
 )

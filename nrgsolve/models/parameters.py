@@ -32,5 +32,5 @@ INTERACTION = Key(NUM, 0.1, "D", f">= 0 and <= {2 * MAX_ENERGY:g} D", "Anderson 
                   lambda u: finite(u) and u >= 0)
 HYBRIDIZATION = Key(NUM, 0.01, "D", f"> 0 and <= {MAX_ENERGY:g} D",
                     "Anderson/resonant level: Γ = πρV² at the Fermi level", lambda g: finite(g) and g > 0)
-FIELD = Key(NUM, 0.0, "D", f"|h| <= {MAX_ENERGY:g} D (non-zero needs run.symmetry = \"abelian\")",
+FIELD = Key(NUM, 0.0, "D", f"|h| <= {MAX_ENERGY:g} D (non-zero needs run.symmetry = \"abelian\" or \"auto\")",
             "Zeeman energy h on the impurity, H = −h S_z", finite)

@@ -84,6 +84,8 @@ class ModelDeclaration:
         A Kondo temperature is expected (the run warns when it is not found).
     particle_hole_symmetric : callable (ImpuritySpec) -> bool
         The impurity part is particle-hole symmetric (the bath and the field are checked separately).
+    particle_hole_breaker : callable (ImpuritySpec) -> str
+        When it is not: which parameters break the symmetry, with their values (for error messages).
     exact_curve : callable (ImpuritySpec) -> tuple (channels, spin) or str
         The Bethe-ansatz curve that applies, or the reason why none does.
     """
@@ -98,6 +100,7 @@ class ModelDeclaration:
     averages: tuple[str, ...] = ()
     kondo_scale: Callable[..., bool] = lambda imp: True
     particle_hole_symmetric: Callable[..., bool] = lambda imp: True
+    particle_hole_breaker: Callable[..., str] = lambda imp: "the impurity parameters are not particle-hole symmetric"
     exact_curve: Callable[..., object] = _never
     order: int = 100                      # position in menus and docs
 

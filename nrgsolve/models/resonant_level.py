@@ -25,6 +25,7 @@ MODEL = ModelDeclaration(
     averages=("occupation", "double_occupancy"),
     kondo_scale=lambda imp: False,
     particle_hole_symmetric=lambda imp: imp.epsilon_d == 0.0,
+    particle_hole_breaker=lambda imp: f"impurity.level = {imp.epsilon_d:g} ≠ 0",
     exact_curve=lambda imp: "no exact curve for model \"resonant-level\"; exact curves exist for kondo, "
                             "spin-kondo and two-channel-kondo",
     order=2,

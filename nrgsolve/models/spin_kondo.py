@@ -25,6 +25,7 @@ MODEL = ModelDeclaration(
     twice_impurity_spin=_twice,
     averages=("spin_correlation",),
     particle_hole_symmetric=lambda imp: imp.potential_scattering == 0.0,
+    particle_hole_breaker=lambda imp: f"impurity.potential_scattering = {imp.potential_scattering:g} ≠ 0",
     exact_curve=lambda imp: kondo_exact_curve(imp, float(imp.spin)),
     order=3,
 )

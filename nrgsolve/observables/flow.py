@@ -31,6 +31,9 @@ class FlowSpectrum:
         Dimensions of every block, descending, zero-padded.
     channel_charge : ndarray (I, K, C) or None
         Charge of each of the C channels of each level (several channels only).
+    twice_isospin : ndarray (I, K, C) or None
+        2I of each channel's isospin multiplet the level belongs to (isospin mode only; the levels
+        are still listed as charge multiplets, 2I+1 of them per isospin multiplet).
     """
 
     iteration: np.ndarray
@@ -43,6 +46,7 @@ class FlowSpectrum:
     discarded_weight: np.ndarray
     block_dimensions: np.ndarray
     channel_charge: np.ndarray | None = None
+    twice_isospin: np.ndarray | None = None
 
 
 def flow_spectrum(records, levels: int) -> FlowSpectrum:
@@ -56,6 +60,8 @@ def flow_spectrum(records, levels: int) -> FlowSpectrum:
     dims = np.zeros((I, B), dtype=int)
     C = records[0].channel_charge.shape[1] if records and records[0].channel_charge is not None else 0
     chq = np.zeros((I, levels, C), dtype=int) if C else None
+    iso_c = records[0].twice_isospin.shape[1] if records and records[0].twice_isospin is not None else 0
+    iso = np.zeros((I, levels, iso_c), dtype=int) if iso_c else None
     for i, r in enumerate(records):
         k = min(levels, len(r.energies))
         E[i, :k] = r.energies[:k]
@@ -65,9 +71,11 @@ def flow_spectrum(records, levels: int) -> FlowSpectrum:
         dims[i, :len(r.block_dims)] = r.block_dims
         if chq is not None:
             chq[i, :k] = r.channel_charge[:k]
+        if iso is not None:
+            iso[i, :k] = r.twice_isospin[:k]
     return FlowSpectrum(
         iteration=np.array([r.index for r in records], dtype=int), energy=E, charge=Q, twice_spin=S,
         degeneracy=D, kept_states=np.array([r.kept_states for r in records], dtype=int),
         truncation_energy=np.array([r.truncation_energy for r in records], dtype=float),
         discarded_weight=np.array([r.discarded_weight for r in records], dtype=float),
-        block_dimensions=dims, channel_charge=chq)
+        block_dimensions=dims, channel_charge=chq, twice_isospin=iso)

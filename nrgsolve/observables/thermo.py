@@ -127,7 +127,7 @@ def free_chain_thermodynamics(onsite, hopping, temperature, n_channels=1):
             "heat": n_channels * float(2.0 * (x * x * ff).sum())}
 
 
-def impurity_thermodynamics(records, chain_onsite, chain_hopping, beta_bar, abelian, n_channels=1,
+def impurity_thermodynamics(records, chain_onsite, chain_hopping, beta_bar, n_channels=1,
                             bath_records=None) -> ThermoCurve:
     """Impurity contributions at T_N = ω_N/β̄ for every iteration record.
 
@@ -138,7 +138,6 @@ def impurity_thermodynamics(records, chain_onsite, chain_hopping, beta_bar, abel
         The chain the run used (units of D); the same chain, cut at site N, is
         the bare reference of iteration N when ``bath_records`` is None.
     beta_bar : float
-    abelian : bool
     n_channels : int
     bath_records : list of IterationRecord, optional
         An NRG run of the bare chain (same chain, same truncation); if given it
@@ -151,6 +150,7 @@ def impurity_thermodynamics(records, chain_onsite, chain_hopping, beta_bar, abel
     """
     T, tchi, ent, heat, its = [], [], [], [], []
     extra: dict = {}
+    abelian = records[-1].twice_sz is not None      # the labels resolve S_z: the magnetization is known
     bath = {}
     if bath_records is not None:
         for b in bath_records:

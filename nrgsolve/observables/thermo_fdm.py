@@ -67,7 +67,7 @@ class ShellStates:
     spin_square : ndarray (M,)
         S(S+1)/3 (su2) or S_z² (abelian) of the shell state plus the environment's n_c (N−n)/8.
     sz : ndarray (M,)
-        S_z of each state (abelian mode; zero in su2).
+        S_z of each state (when the labels resolve it; zero otherwise).
     scalars : dict of ndarray (M,)
         Diagonal elements of the impurity operators carried by the run.
     last_index : int
@@ -84,7 +84,7 @@ class ShellStates:
     shell: np.ndarray | None = None
 
 
-def shell_states(records, n_channels: int = 1, abelian: bool = False) -> ShellStates:
+def shell_states(records, n_channels: int = 1) -> ShellStates:
     """Collect the discarded states of every shell (all states of the last one).
 
     Parameters
@@ -94,8 +94,6 @@ def shell_states(records, n_channels: int = 1, abelian: bool = False) -> ShellSt
         ``truncation_energy`` (units of ω_N; infinite when nothing was discarded).
     n_channels : int
         Chain channels (each environment site has 4^{n_channels} states).
-    abelian : bool
-        Labels are (Q, 2S_z) instead of (Q, 2S).
 
     Returns
     -------
@@ -117,7 +115,8 @@ def shell_states(records, n_channels: int = 1, abelian: bool = False) -> ShellSt
             "energy": (float(rec.ground_energy) - ref) + rec.scale * E[sel],
             "log_weight": np.log(mult) + env * math.log(4.0),
             "spin_square": np.asarray(rec.spin_sq, dtype=float)[sel] + env * SITE_SPIN_SQUARE,
-            "sz": (0.5 * np.asarray(rec.twice_spin, dtype=float)[sel]) if abelian else np.zeros(int(sel.sum())),
+            "sz": (0.5 * np.asarray(rec.twice_sz, dtype=float)[sel]) if rec.twice_sz is not None
+                  else np.zeros(int(sel.sum())),
             "scalars": {name: np.asarray(v, dtype=float)[sel] for name, v in rec.scalars.items()},
             "shell": np.full(int(sel.sum()), rec.index),
         })
@@ -173,7 +172,7 @@ def chain_thermodynamics(states: ShellStates, temperatures, chunk: int = 16) -> 
     return out
 
 
-def impurity_thermodynamics_fdm(records, temperatures, n_channels: int = 1, abelian: bool = False,
+def impurity_thermodynamics_fdm(records, temperatures, n_channels: int = 1,
                                 bath_records=None, chain_onsite=None, chain_hopping=None) -> ThermoCurve:
     """Impurity contributions from the full density matrix of the impurity run and of the bath.
 
@@ -184,7 +183,6 @@ def impurity_thermodynamics_fdm(records, temperatures, n_channels: int = 1, abel
     temperatures : array_like (K,)
         Ascending temperatures (units of D).
     n_channels : int
-    abelian : bool
     bath_records : list of IterationRecord, optional
         A bath-only run on the same chain sites with the same truncation (the reference
         whose errors cancel those of the impurity run).  Its last shell must be the same
@@ -203,7 +201,7 @@ def impurity_thermodynamics_fdm(records, temperatures, n_channels: int = 1, abel
     N = records[-1].index
 
     def thermo_of(recs):
-        return chain_thermodynamics(shell_states(recs, n_channels, abelian), T)
+        return chain_thermodynamics(shell_states(recs, n_channels), T)
 
     imp = thermo_of(records)
     if bath_records is not None:
@@ -218,7 +216,7 @@ def impurity_thermodynamics_fdm(records, temperatures, n_channels: int = 1, abel
             for k in ref:
                 ref[k][i] = fr[k]
     extra = {name: imp[name] for name in sorted(records[-1].scalars)}
-    if abelian:
+    if records[-1].twice_sz is not None:          # the labels resolve S_z: the magnetization is known
         extra["total_sz"] = imp["sz"]
     extra["free_energy"] = imp["free_energy"] - ref["free_energy"]
     return ThermoCurve(T, imp["T_chi"] - ref["T_chi"], imp["entropy"] - ref["entropy"], imp["heat"] - ref["heat"],
