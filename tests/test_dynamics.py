@@ -62,14 +62,15 @@ def dense_kondo(J, K, hop, T, spin):
     return om, (A * A * (rho[None, :] + rho[:, None])).ravel(), (S * S * (rho[None, :] - rho[:, None])).ravel()
 
 
-@pytest.mark.parametrize("symmetry", ["su2", "abelian"])
+@pytest.mark.parametrize("symmetry,K", [("su2", 0.1), ("abelian", 0.1), ("isospin", 0.0)])
 @pytest.mark.parametrize("T", [0.0, 0.1])
-def test_kondo_composite_operator_and_spin_weights_match_dense_diagonalization(symmetry, T):
+def test_kondo_composite_operator_and_spin_weights_match_dense_diagonalization(symmetry, K, T):
     """Without truncation the full-density-matrix weights of the T-matrix operator O_σ = [f_0σ, H_imp]
     of a Kondo impurity (Costi 2000, from memory) and of the commutator ⟨⟨S_z; S_z⟩⟩ equal the
     Lehmann sums of dense exact diagonalization of the same chain (common practice, no source).
-    In su2 mode this checks the rank-1 recoupling of the spin vector through the sites."""
-    J, K, Lam, N = 0.4, 0.1, 2.0, 2
+    In su2 and isospin mode this checks the rank-1 recoupling of the spin vector through the sites
+    (isospin needs particle-hole symmetry: K = 0)."""
+    J, Lam, N = 0.4, 2.0, 2
     hop = wilson_hopping(np.arange(N), Lam)
     sym = make_symmetry(symmetry)
     blk = kondo_block(J, K)
@@ -286,7 +287,7 @@ def test_two_channel_kondo_t_matrix_is_one_half():
     curve drifts to 0.6–0.8, unconverged)."""
     r = solved(run_text('model = "two-channel-kondo"\nexchange = 0.5', ["t-matrix"], kept=800, Lam=4.0,
                         lowest=1e-8))
-    assert r.spectral.dynamics.components["t-matrix"] == ("spin", "spin1")
+    assert r.spectral.dynamics.components["t-matrix"] == ("spin0", "spin1")      # one component per channel
     for c in (0, 1):
         for w in (0.0, 1e-8, 1e-7, 1e-6):
             assert value_at(r, "t-matrix", w, c=c) == pytest.approx(0.5, rel=0.03)

@@ -140,8 +140,9 @@ def impurity_operators(sym, block, self_energy: bool = False) -> dict:
 
 
 def component_names(sym, op: TensorOperator) -> tuple:
-    """Names of the stored components: ``"spin"`` (su2; ``"spin1"`` … for further channels),
-    ``"up"``/``"down"`` (abelian; ``"up1"`` … for further channels), ``"z"`` for the spin vector."""
+    """Names of the stored components, as the symmetry names them: ``"spin"`` (su2, isospin; with two
+    channels ``"spin0"``, ``"spin1"``), ``"up"``/``"down"`` (abelian; ``"up1"``/``"down1"`` for the
+    second channel); ``"z"`` for the spin vector."""
     if not op.fermionic:
         return ("z",)
     names = dict(zip(sym.components, sym.component_names))
