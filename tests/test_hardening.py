@@ -51,6 +51,7 @@ twists = 2
 kept_states = 1500
 lowest_temperature = 1e-9
 workers = 2
+symmetry = "su2"                # long enough (tens of seconds) to be interrupted; isospin would finish first
 """
 
 
