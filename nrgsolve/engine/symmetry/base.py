@@ -34,7 +34,7 @@ import numpy as np
 
 from ..fock import FockSpace, ExplicitBlock
 
-__all__ = ["Symmetry", "BlockSet", "SiteMultiplet", "LevelView"]
+__all__ = ["Symmetry", "BlockSet", "SiteMultiplet", "LevelView", "highest_weights", "sector_index"]
 
 #: matrix elements below this are treated as zero when resolving explicit blocks
 TOL = 1e-10
@@ -273,3 +273,36 @@ def sector_index(space: FockSpace):
     charges = [np.rint(np.diag(q)).astype(int).tolist() for q in space.channel_charges()]
     twice_sz = np.rint(2 * np.diag(space.total_sz())).astype(int).tolist()
     return charges, twice_sz
+
+
+def highest_weights(dim: int, idx, raising, H):
+    """Highest-weight vectors of one sector and their energies.
+
+    Parameters
+    ----------
+    dim : int
+        Dimension of the explicit space.
+    idx : ndarray of int
+        Basis states of the sector (fixed charges and S_z, or I_z).
+    raising : ndarray (r, len(idx))
+        The raising operators restricted to the sector's columns, stacked; their common null space is
+        spanned by the highest-weight states.
+    H : ndarray (dim, dim) or None
+        Hamiltonian to diagonalize within that space (None: energies 0).
+
+    Returns
+    -------
+    (ndarray, ndarray) or None
+        Energies (ascending) and the vectors (dim, n) as columns; None when there is none.
+    """
+    import scipy.linalg as sla
+    ns = sla.null_space(raising, rcond=1e-10) if np.abs(raising).max(initial=0) > 0 else np.eye(len(idx))
+    if ns.shape[1] == 0:
+        return None
+    hw = np.zeros((dim, ns.shape[1]))
+    hw[idx] = ns
+    if H is None:
+        return np.zeros(hw.shape[1]), hw
+    h = hw.T @ H @ hw
+    e, w = np.linalg.eigh(0.5 * (h + h.T))
+    return e, hw @ w

@@ -30,12 +30,11 @@ from __future__ import annotations
 import itertools
 
 import numpy as np
-import scipy.linalg as sla
 
 from ...errors import NrgInputError
 from ..clebsch import cg
 from ..fock import FockSpace, ExplicitBlock
-from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index
+from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights
 
 __all__ = ["IsospinSymmetry"]
 
@@ -145,18 +144,10 @@ class IsospinSymmetry(Symmetry):
             if min(key) < 0:
                 continue
             idx = np.array([i for i, k in enumerate(keys) if k == key])
-            stack = np.vstack([op[:, idx] for op in raise_ops])
-            ns = sla.null_space(stack, rcond=1e-10) if np.abs(stack).max(initial=0) > 0 else np.eye(len(idx))
-            if ns.shape[1] == 0:
+            found = highest_weights(space.dim, idx, np.vstack([op[:, idx] for op in raise_ops]), H)
+            if found is None:
                 continue
-            hw = np.zeros((space.dim, ns.shape[1]))
-            hw[idx] = ns
-            if H is not None:
-                h = hw.T @ H @ hw
-                e, w = np.linalg.eigh(0.5 * (h + h.T))
-                hw = hw @ w
-            else:
-                e = np.zeros(hw.shape[1])
+            e, hw = found
             comps = {key: hw}
             for g, j2 in enumerate(key):
                 new = {}

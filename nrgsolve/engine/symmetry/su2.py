@@ -14,11 +14,10 @@ so new site types (several channels) need no new formulas.
 from __future__ import annotations
 
 import numpy as np
-import scipy.linalg as sla
 
 from ..clebsch import cg
 from ..fock import FockSpace, ExplicitBlock
-from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index
+from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights
 
 __all__ = ["Su2Symmetry"]
 
@@ -87,21 +86,10 @@ class Su2Symmetry(Symmetry):
                 continue
             idx = np.array([i for i in range(space.dim)
                             if tuple(c[i] for c in charges) + (tsz[i],) == key])
-            sp = splus[:, idx]
-            if np.abs(sp).max(initial=0) > 0:
-                ns = sla.null_space(sp, rcond=1e-10)
-            else:
-                ns = np.eye(len(idx))
-            if ns.shape[1] == 0:
+            found = highest_weights(space.dim, idx, splus[:, idx], H)
+            if found is None:
                 continue
-            hw = np.zeros((space.dim, ns.shape[1]))
-            hw[idx] = ns
-            if H is not None:
-                h = hw.T @ H @ hw
-                e, w = np.linalg.eigh(0.5 * (h + h.T))
-                hw = hw @ w
-            else:
-                e = np.zeros(hw.shape[1])
+            e, hw = found
             comps = [hw]
             S = key[-1] / 2.0
             m = S
