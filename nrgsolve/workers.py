@@ -7,7 +7,8 @@ Twists of a run and points of a sweep run in processes started with the
   and only the parent decides what happens (it stops the workers and says
   so in one line).  The parent ignores SIGINT while it starts the workers,
   so they inherit the ignored signal through ``exec`` and are quiet even
-  before their initializer runs.
+  before their initializer runs; it also blocks SIGINT in that window, so a
+  Ctrl-C that arrives then is delivered to it afterwards instead of lost.
 * It dies with its parent: on Linux through ``prctl(PR_SET_PDEATHSIG,
   SIGKILL)``; everywhere through a watchdog thread that ends the process
   when its parent process id changes (the parent died and the worker was
@@ -88,6 +89,8 @@ def _init_worker(parent_pid: int, queue) -> None:
     """Initializer of every worker process (see the module docstring)."""
     global _QUEUE
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "pthread_sigmask"):        # inherited blocked from the parent's start-up window;
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})   # a pending Ctrl-C is dropped (ignored)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     _set_parent_death_signal()
     if os.getppid() != parent_pid:          # the parent died before the death signal was set
@@ -109,14 +112,22 @@ def reporter() -> Callable[[int], None] | None:
 
 @contextmanager
 def _sigint_ignored():
+    """SIGINT ignored (so that workers started now inherit the ignored signal) and blocked (so that a Ctrl-C
+    in this window is not lost: Linux keeps a blocked signal pending even while it is ignored, and it is
+    delivered to the restored handler when the block is lifted)."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
+    blocked = hasattr(signal, "pthread_sigmask")
+    if blocked:
+        signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
     old = signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
         yield
     finally:
         signal.signal(signal.SIGINT, old)
+        if blocked:
+            signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
 
 
 def terminate_pool(pool) -> None:

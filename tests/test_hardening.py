@@ -306,7 +306,16 @@ def _start_and_wait_for_workers(args, cwd, n_workers):
         if len(workers) >= n_workers:
             break
         time.sleep(0.05)
-    time.sleep(1.5)            # let the workers start their numerics (past the imports)
+    # let the workers start their numerics (past start-up, while the parent may still ignore Ctrl-C)
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        try:
+            busy = sum(w.cpu_times().user for w in workers)
+        except Exception:          # a worker may be gone already
+            break
+        if busy >= 1.0 * n_workers:
+            break
+        time.sleep(0.05)
     assert proc.poll() is None, "the run ended before it could be interrupted"
     return proc, _children(proc.pid)
 
