@@ -34,7 +34,7 @@ import numpy as np
 
 from ..fock import FockSpace, ExplicitBlock
 
-__all__ = ["Symmetry", "BlockSet", "SiteMultiplet", "LevelView", "highest_weights", "sector_index"]
+__all__ = ["Symmetry", "BlockSet", "SiteMultiplet", "LevelView", "highest_weights", "sector_index", "reduced_spin_vector"]
 
 #: matrix elements below this are treated as zero when resolving explicit blocks
 TOL = 1e-10
@@ -306,3 +306,37 @@ def highest_weights(dim: int, idx, raising, H):
     h = hw.T @ H @ hw
     e, w = np.linalg.eigh(0.5 * (h + h.T))
     return e, hw @ w
+
+
+def reduced_spin_vector(comps, vector_of, sz, targets) -> dict:
+    """Reduced elements of the spin vector from its z component, for labels whose last part is 2S.
+
+    ⟨L'‖S‖L⟩ = ⟨L' M|S_z|L M⟩ / ⟨S M; 1 0|S' M⟩ with M = min(S, S'): a non-zero Clebsch–Gordan coefficient
+    for every allowed pair (S = S' = 0 excluded); any other group of the label is a spectator (rank 0).
+
+    Parameters
+    ----------
+    comps : collection of labels
+        The multiplets of the explicit block.
+    vector_of : callable (label, 2M) -> ndarray (dim, n)
+        The multiplets' component vectors with spin projection M (the same spectator components on both sides).
+    sz : ndarray (dim, dim)
+        The z component.
+    targets : callable label -> list of labels
+        Labels the spin vector connects a label to.
+    """
+    from ..clebsch import cg
+    out = {}
+    for L in comps:
+        for Lp in targets(L):
+            if Lp not in comps:
+                continue
+            S2, Sp2 = L[-1], Lp[-1]
+            M2 = min(S2, Sp2)
+            c = cg(S2, M2, 2, 0, Sp2, M2)
+            if c == 0.0:
+                continue
+            red = vector_of(Lp, M2).T @ sz @ vector_of(L, M2) / c
+            if np.abs(red).max(initial=0) > 1e-12:
+                out[(Lp, L)] = red
+    return out

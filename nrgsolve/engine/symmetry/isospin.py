@@ -34,7 +34,8 @@ import numpy as np
 from ...errors import NrgInputError
 from ..clebsch import cg
 from ..fock import FockSpace, ExplicitBlock
-from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights
+from .base import (Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights,
+                   reduced_spin_vector)
 
 __all__ = ["IsospinSymmetry"]
 
@@ -403,18 +404,4 @@ class IsospinSymmetry(Symmetry):
         of the two labels agree, the spin part as in the su2 mode with M = min(S, S')."""
         sign = (-1) ** ((block.first_site - 1) % 2)
         comps = {key: c for key, _e, c in self._multiplets(block.space, block.hamiltonian, sign)}
-        out = {}
-        for L, cL in comps.items():
-            for Lp in self._vector_targets(L):
-                if Lp not in comps:
-                    continue
-                S2, Sp2 = L[-1], Lp[-1]
-                M2 = min(S2, Sp2)
-                c = cg(S2, M2, 2, 0, Sp2, M2)
-                if c == 0.0:
-                    continue
-                m = tuple(L[:-1]) + (M2,)
-                red = comps[Lp][m].T @ sz @ cL[m] / c
-                if np.abs(red).max(initial=0) > 1e-12:
-                    out[(Lp, L)] = red
-        return out
+        return reduced_spin_vector(comps, lambda L, M2: comps[L][tuple(L[:-1]) + (M2,)], sz, self._vector_targets)

@@ -17,7 +17,8 @@ import numpy as np
 
 from ..clebsch import cg
 from ..fock import FockSpace, ExplicitBlock
-from .base import Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights
+from .base import (Symmetry, BlockSet, SiteMultiplet, LevelView, TOL, sector_index, highest_weights,
+                   reduced_spin_vector)
 
 __all__ = ["Su2Symmetry"]
 
@@ -245,17 +246,4 @@ class Su2Symmetry(Symmetry):
         """Reduced elements from the z component alone: ⟨S'‖S‖S⟩ = ⟨S' M|S_z|S M⟩ / ⟨S M; 1 0|S' M⟩ with
         M = min(S, S') (a non-zero Clebsch–Gordan coefficient for every allowed pair, S = S' = 0 excluded)."""
         comps = {key: c for key, _e, c in self._multiplets(block.space, block.hamiltonian)}
-        out = {}
-        for L, cL in comps.items():
-            for Lp in self._vector_targets(L):
-                if Lp not in comps:
-                    continue
-                S2, Sp2 = L[-1], Lp[-1]
-                M2 = min(S2, Sp2)
-                c = cg(S2, M2, 2, 0, Sp2, M2)
-                if c == 0.0:
-                    continue
-                red = comps[Lp][(Sp2 - M2) // 2].T @ sz @ cL[(S2 - M2) // 2] / c
-                if np.abs(red).max(initial=0) > 1e-12:
-                    out[(Lp, L)] = red
-        return out
+        return reduced_spin_vector(comps, lambda L, M2: comps[L][(L[-1] - M2) // 2], sz, self._vector_targets)
