@@ -118,7 +118,7 @@ def check_output_path(path: str | Path, force: bool, name: str = "path", suffix:
     force : bool
         Allow overwriting an existing file.
     name : str
-        The parameter named in messages (e.g. "output", "--output").
+        The argument named in messages (the command line passes its own flag name here).
     suffix : str
         The file kind named in messages.
     create_folder : bool
