@@ -29,7 +29,9 @@ has the discrete spectral weights
         \\left[(O_2 ρ^N)_{sr} ± (ρ^N O_2)_{sr}\\right] δ(ω - E^N_s + E^N_r),
 
 summed over the pairs of states of iteration N of which at least one is
-discarded: + for fermionic operators (anticommutator: the weights of d† sum
+discarded (pairs whose density-matrix factor vanishes are skipped: at T = 0 every
+discarded–discarded pair but those of the last iteration, since only its ground
+state carries weight): + for fermionic operators (anticommutator: the weights of d† sum
 to Tr ρ{d, d†} = 1 at every temperature), − for bosonic ones (commutator: the
 spectral function of the dynamical susceptibility).  The first term is the
 greater, the second the lesser part.
@@ -511,6 +513,40 @@ def _reduce_density_matrix(sh, vectors, rhoD_i, rhoK_t, prev_kept, prev_mult):
     return {L: 0.5 * (R + R.T) for L, R in new.items() if prev_kept.get(L, 0)}
 
 
+
+def _weightless_blocks(rD, mult) -> set:
+    """Blocks whose discarded states carry no density-matrix weight (at most the skip threshold) at this
+    shell and temperature: at T = 0 every shell but the last, at T > 0 the shells far from T."""
+    return {L for L, w in rD.items() if not w.size or float(w.sum()) * mult[L] <= _SKIP}
+
+
+class _Regions:
+    """The frequency differences of one block pair, split by whether the upper state s and the lower
+    state r are kept (K) or discarded (D): "KD", "DK", "DD" (KK pairs belong to a later shell).
+    Each region's frequencies, bin keys and 1/ω are computed when first asked for."""
+
+    def __init__(self, Es, Er, ks, kr, scale, bins, tol):
+        ns, nr = len(Es), len(Er)
+        self.slices = {}
+        if ks and kr < nr:
+            self.slices["KD"] = (slice(0, ks), slice(kr, nr))
+        if ks < ns and kr:
+            self.slices["DK"] = (slice(ks, ns), slice(0, kr))
+        if ks < ns and kr < nr:
+            self.slices["DD"] = (slice(ks, ns), slice(kr, nr))
+        self.Es, self.Er, self.scale, self.bins, self.tol = Es, Er, scale, bins, tol
+        self._done = {}
+
+    def get(self, name):
+        if name not in self._done:
+            a, b = self.slices[name]
+            om = (self.scale * (self.Es[a][:, None] - self.Er[b][None, :])).ravel()
+            apart = np.abs(om) > self.tol
+            inv_om = np.where(apart, 1.0 / np.where(apart, om, 1.0), 0.0)
+            self._done[name] = (self.bins.keys(om), om, inv_om)
+        return self._done[name]
+
+
 def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, per_decade, tol):
     nT, nX = len(temps), len(correlators)
     comps_of = [ops[o2].components for _n, _o1, o2 in correlators]
@@ -550,6 +586,7 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
             F = {nm: {c: transform_block_operator(sym, c, sh["F_old"][nm][c], vectors, sh["layout"],
                                                   twice_rank=op.twice_rank)
                       for c in op.components} for nm, op in ops.items()}
+        weightless = {t: _weightless_blocks(rhoD[t][i], sh["mult"]) for t in active}
         for (rank, c), members in groups.items():
             pm = 1.0 if rank % 2 else -1.0           # anticommutator (fermions) or commutator (bosons)
             pairs = sorted(set().union(*(F[o2][c].keys() for _x, _c, _o1, o2 in members)))
@@ -558,46 +595,61 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                 ns, nr = len(E[Ls]), len(E[Lr])
                 if ks == ns and kr == nr:
                     continue
-                om = scale * (E[Ls][:, None] - E[Lr][None, :])
-                regions = [(slice(0, ks), slice(kr, nr)), (slice(ks, ns), slice(0, nr))]
-                om_flat = np.concatenate([om[a, b].ravel() for a, b in regions])
-                keys = bins.keys(om_flat)
-                apart = np.abs(om_flat) > tol
-                inv_om = np.where(apart, 1.0 / np.where(apart, om_flat, 1.0), 0.0)
+                regions = _Regions(E[Ls], E[Lr], ks, kr, scale, bins, tol)
                 fac = sym.spectral_weight_factor(Ls, rank)
                 for t in active:
+                    dead_D = weightless[t]
                     rK_s, rK_r = rhoK[t].get(Ls), rhoK[t].get(Lr)
                     rD_s, rD_r = rhoD[t][i][Ls], rhoD[t][i][Lr]
-                    # O2 ρ (ρ on the lower state r) and ρ O2 (ρ on the upper state s)
+                    # which factor of each region carries density-matrix weight: O2 ρ puts ρ on the lower
+                    # state r (g, greater part), ρ O2 on the upper state s (h, lesser part)
+                    need = {"KD": (Lr not in dead_D, rK_s is not None),
+                            "DK": (rK_r is not None, Ls not in dead_D),
+                            "DD": (Lr not in dead_D, Ls not in dead_D)}
                     cache = {}
                     for xi, ci, o1, o2 in members:
-                        if o2 not in cache:
-                            M = F[o2][c].get((Ls, Lr))
-                            if M is None:
-                                cache[o2] = None
-                                continue
-                            Fr = np.empty_like(M)
-                            Fr[:, kr:] = M[:, kr:] * rD_r[None, :]
-                            if kr:
-                                Fr[:, :kr] = M[:, :kr] @ rK_r if rK_r is not None else 0.0
-                            Fs = np.empty_like(M)
-                            Fs[ks:] = M[ks:] * rD_s[:, None]
-                            if ks:
-                                Fs[:ks] = rK_s @ M[:ks] if rK_s is not None else 0.0
-                            cache[o2] = (Fr, Fs)
                         M1 = F[o1][c].get((Ls, Lr))
-                        if M1 is None or cache[o2] is None:
+                        M = F[o2][c].get((Ls, Lr))
+                        if M1 is None or M is None:
                             continue
-                        Fr, Fs = cache[o2]
-                        g = np.concatenate([(M1[a, b] * Fr[a, b]).ravel() for a, b in regions])
-                        h = np.concatenate([(M1[a, b] * Fs[a, b]).ravel() for a, b in regions])
-                        g *= fac
-                        h *= fac
-                        total[xi, t, ci] += g.sum() + pm * h.sum()
-                        lesser[xi, t, ci] += h.sum()
-                        w = g + pm * h
-                        inverse[xi, t, ci] += float(w @ inv_om)
-                        bins.add((xi, t, ci), keys, om_flat, w)
+                        parts_w, parts_k, parts_o = [], [], []
+                        for name, (a, b) in regions.slices.items():
+                            use_g, use_h = need[name]
+                            if not (use_g or use_h):
+                                continue
+                            key = (o2, name)
+                            if key not in cache:
+                                Mr = M[a, b]
+                                if name == "KD":
+                                    cache[key] = (Mr * rD_r[None, :] if use_g else None,
+                                                  rK_s @ Mr if use_h else None)
+                                elif name == "DK":
+                                    cache[key] = (Mr @ rK_r if use_g else None,
+                                                  Mr * rD_s[:, None] if use_h else None)
+                                else:
+                                    cache[key] = (Mr * rD_r[None, :] if use_g else None,
+                                                  Mr * rD_s[:, None] if use_h else None)
+                            Fr, Fs = cache[key]
+                            M1r = M1[a, b]
+                            g = (M1r * Fr).ravel() * fac if Fr is not None else 0.0
+                            h = (M1r * Fs).ravel() * fac if Fs is not None else 0.0
+                            h_sum = float(np.sum(h))
+                            w = g + pm * h
+                            if np.ndim(w) == 0:
+                                continue
+                            total[xi, t, ci] += float(w.sum())
+                            lesser[xi, t, ci] += h_sum
+                            keys, om_flat, inv_om = regions.get(name)
+                            inverse[xi, t, ci] += float(w @ inv_om)
+                            parts_w.append(w)
+                            parts_k.append(keys)
+                            parts_o.append(om_flat)
+                        if parts_w:
+                            if len(parts_w) == 1:
+                                bins.add((xi, t, ci), parts_k[0], parts_o[0], parts_w[0])
+                            else:
+                                bins.add((xi, t, ci), np.concatenate(parts_k), np.concatenate(parts_o),
+                                         np.concatenate(parts_w))
         if i == 0:
             break
         prev = shells[i - 1]
