@@ -304,6 +304,17 @@ def broaden(omega_p, weight_p, grid, broadening: float = DEFAULT_BROADENING, wid
     NrgInputError
         For b ≤ 0 or ω_0 < 0.
     """
+    log_part, gauss_part = _broadened_parts(omega_p, weight_p, grid, broadening, width0, chunk)
+    nonnegative = bool(np.all(np.asarray(weight_p, dtype=float) >= 0))
+    return _combined(grid, log_part, gauss_part, broadening, width0, corrected, nonnegative)
+
+
+def _broadened_parts(omega_p, weight_p, grid, broadening, width0, chunk=4096):
+    """The two linear parts of :func:`broaden`: (log-Gaussian part, Gaussian part), each shape (n_ω,).
+
+    Both are linear in the weights, so the parts of several twists may be averaged before
+    :func:`_combined` applies the (linear) bias correction and the (non-linear) clipping once.
+    """
     if not (broadening > 0 and np.isfinite(broadening)):
         raise NrgInputError(f"spectral.broadening: got {broadening}; allowed range: > 0")
     if not (width0 >= 0 and np.isfinite(width0)):
@@ -335,6 +346,16 @@ def broaden(omega_p, weight_p, grid, broadening: float = DEFAULT_BROADENING, wid
             sel = poles[s:s + chunk]
             gauss_part[rows] += (np.exp(-((x[rows, None] - op[None, sel]) / width0) ** 2)
                                  / (width0 * math.sqrt(math.pi))) @ wp[sel]
+    return log_part, gauss_part
+
+
+def _combined(grid, log_part, gauss_part, broadening, width0, corrected, nonnegative):
+    """Mix the two parts of :func:`_broadened_parts` with the weight h(ω), bias-corrected if asked.
+
+    ``nonnegative``: the weights were all ≥ 0, so the result is clipped at 0 (after the correction).
+    """
+    x = np.asarray(grid, dtype=float)
+    b = float(broadening)
     if width0 == 0:
         out = log_kernel_correction(x, log_part, b) if corrected else log_part
     elif not corrected:
@@ -349,7 +370,7 @@ def broaden(omega_p, weight_p, grid, broadening: float = DEFAULT_BROADENING, wid
         norm = _grid_integral(x, share)
         factor = 1.0 - _grid_integral(x, moved) / norm if norm > 0 else 1.0
         out = h * log_part + moved + share * min(max(factor, 0.5), 1.5)
-    if corrected and np.all(wp >= 0):
+    if corrected and nonnegative:
         out = np.maximum(out, 0.0)        # non-negative weights give a non-negative function
     return out
 
@@ -430,16 +451,26 @@ def average_spectra(discrete: list, broadening: float = DEFAULT_BROADENING, poin
     comps = {x: (first.correlator_components[i] if first.correlator_components else first.components)
              for i, x in enumerate(xs)}
     acc = {x: np.zeros((nT, len(comps[x]), len(grid))) for x in xs}
+    log_acc = {x: np.zeros_like(a) for x, a in acc.items()}
+    gauss_acc = {x: np.zeros_like(a) for x, a in acc.items()}
+    negative = {x: np.zeros(a.shape[:2], dtype=bool) for x, a in acc.items()}
     for d in discrete:
         for xi, x in enumerate(xs):
             for t in range(nT):
                 if wanted is not None and x in wanted and not wanted[x][t]:
                     continue
                 for c in range(len(comps[x])):
-                    acc[x][t, c] += broaden(d.omega[xi, t, c], d.weight[xi, t, c], grid, broadening, widths[t],
-                                            corrected=corrected)
+                    lp, gp = _broadened_parts(d.omega[xi, t, c], d.weight[xi, t, c], grid, broadening, widths[t])
+                    log_acc[x][t, c] += lp
+                    gauss_acc[x][t, c] += gp
+                    negative[x][t, c] |= bool(np.any(d.weight[xi, t, c] < 0))
+    # the parts are linear in the weights: average the twists first, then correct and clip once (clipping
+    # single twists, whose curves are spiky for b ≲ ln Λ, would add weight)
     for x in xs:
-        acc[x] /= len(discrete)
+        for t in range(nT):
+            for c in range(len(comps[x])):
+                acc[x][t, c] = _combined(grid, log_acc[x][t, c] / len(discrete), gauss_acc[x][t, c] / len(discrete),
+                                         broadening, widths[t], corrected, not negative[x][t, c])
     has_g = "G" in xs
     occ = np.mean([d.occupation for d in discrete], axis=0) if has_g else None
     inverse = ({x: np.array([d.inverse_moment[xi, :, 0] for d in discrete]) for xi, x in enumerate(xs)}
