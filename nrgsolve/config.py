@@ -175,7 +175,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             "temperatures of the spectra (spectral.quantities: A_d, T-matrix, χ''); no spectral "
                             "pass when neither these nor conductance or transport temperatures are given",
                             lambda v: _number_list(v, 0.0, True), convert=_temperature_tuple),
-        "broadening": Key(NUM, 0.6, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
+        "broadening": Key(NUM, 0.5, "-", "> 0 and <= 2", "width b of the log-Gaussian broadening kernel",
                           lambda b: finite(b) and 0 < b <= 2),
         "bias_correction": Key(bool, True, "-", "true | false",
                                "remove the leading bias of the log-Gaussian kernel (second-order deconvolution in "

@@ -247,16 +247,19 @@ def test_broadened_spectrum_is_normalized(symmetric, asymmetric):
 
 @pytest.mark.slow
 def test_resonant_level_matches_exact_finite_band_spectral_function():
-    """U = 0, ε_d = 0.005, Γ = 0.01, Λ = 2, 4 twists, b = 0.4, 800 states: the z-averaged A(ω) follows
-    the exact finite-band A = −(1/π) Im 1/(ω − ε_d − Σ), Σ = (Γ/π) ln|(ω+D)/(ω−D)| − iΓ (computed
-    here; textbook) for 1e-4 ≤ |ω| ≤ 0.5 D: within 4 % at T = 0, 1e-4, 1e-3 (measured 3.6 %, 3.4 %,
-    3.5 %; the plain log-Gaussian kernel was 12 % off in the tails), 4.5 % at T = 3e-3 (measured 4.0 %)
-    and, as A does not depend on T, 7 % at T = Γ (measured 6.7 %, just below |ω| ≈ T, where the
-    finite-temperature spectrum is built from few shells: the 3 % asked for is not reached there).
-    The linear conductance is within 1 % of the exact integral ∫(−f')πΓA for every T ≤ Γ (measured
-    −0.7 … −0.9 %), the T-matrix is πΓ A_d against the exact one, and the total weight is 1 within 1e-3."""
+    """U = 0, ε_d = 0.005, Γ = 0.01: the z-averaged A(ω) follows the exact finite-band
+    A = −(1/π) Im 1/(ω − ε_d − Σ), Σ = (Γ/π) ln|(ω+D)/(ω−D)| − iΓ (computed here; textbook) within 3 %
+    for 1e-4 ≤ |ω| ≤ 0.5 D at T = 0, 1e-4, 1e-3, 3e-3 and Γ, as A does not depend on T at U = 0.
+    Settings: Λ = 3, 8 twists, 800 states, b = 0.4 (measured 2.5 %, 1.5 %, 1.3 %, 1.1 %, 2.5 %; the
+    largest errors sit near ω ≈ 2.5e-3 at T = 0 and just below |ω| ≈ T at T = Γ).  At Λ = 2 with
+    4 twists and 800 states the NRG weights themselves were off by 3.4–3.6 % (against the exact poles
+    of the same chains, broadened alike: 1 %), so Λ = 3 with more twists is the better use of the time.
+    The total weight is 1 within 1e-3 (measured ~1e-6), also at the default b = 0.5, where A is
+    within 3 % too (measured 2.6 %).  The linear conductance is within 1 % of the exact integral
+    ∫(−f')πΓA for every T ≤ Γ, and the T-matrix is πΓ A_d against the exact one."""
     from scipy.special import expit
-    text = config(0.0, 0.01, level=0.005, kept=800, twists=4, Lam=2.0, lowest=1e-6,
+    from nrgsolve.observables.spectral import DEFAULT_BROADENING, average_spectra
+    text = config(0.0, 0.01, level=0.005, kept=800, twists=8, Lam=3.0, lowest=1e-6,
                   spectral="temperatures = [0.0, 1e-4, 1e-3, 3e-3, 1e-2]\nbroadening = 0.4\n"
                            "quantities = [\"impurity\", \"t-matrix\"]\n"
                            "conductance_temperatures = [1e-4, 1e-3, 3e-3, 1e-2]")
@@ -265,15 +268,22 @@ def test_resonant_level_matches_exact_finite_band_spectral_function():
     from nrgsolve.discretize import twists as twist_values
     spec = parse_config(text)
     bath = bath_from_spec(spec)
-    c, transport, _alloy = _spectral_outputs(spec, [solve_twist(spec, float(z), None, bath)
-                                                    for z in twist_values(4)], bath)
+    twists = [solve_twist(spec, float(z), None, bath) for z in twist_values(8)]
+    c, transport, _alloy = _spectral_outputs(spec, twists, bath)
     om = c.omega
     sel = (np.abs(om) >= 1e-4) & (np.abs(om) <= 0.5)
     ex = exact_resonant_level(om, 0.005, 0.01)
-    for i, tol in enumerate((0.04, 0.04, 0.04, 0.045, 0.07)):
-        np.testing.assert_allclose(c.spectral[i, 0][sel], ex[sel], rtol=tol)
-        np.testing.assert_allclose(c.dynamics.curves["t-matrix"][i, 0][sel], math.pi * 0.01 * ex[sel], rtol=tol)
+    for i in range(len(c.temperatures)):
+        np.testing.assert_allclose(c.spectral[i, 0][sel], ex[sel], rtol=0.03)
+        np.testing.assert_allclose(c.dynamics.curves["t-matrix"][i, 0][sel], math.pi * 0.01 * ex[sel], rtol=0.03)
         assert log_integral(om, c.spectral[i, 0]) == pytest.approx(1.0, abs=1e-3)
+    default = average_spectra([t.spectral for t in twists], DEFAULT_BROADENING)
+    assert default.broadening == 0.5
+    ex = exact_resonant_level(default.omega, 0.005, 0.01)
+    sel = (np.abs(default.omega) >= 1e-4) & (np.abs(default.omega) <= 0.5)
+    for i in range(len(default.temperatures)):
+        assert log_integral(default.omega, default.spectral[i, 0]) == pytest.approx(1.0, abs=1e-3)
+        np.testing.assert_allclose(default.spectral[i, 0][sel], ex[sel], rtol=0.03)
     for T, g in zip(transport.temperature, transport.conductance):
         f = lambda w: math.pi * 0.01 * exact_resonant_level(np.array([w]), 0.005, 0.01)[0] * expit(w / T) * expit(-w / T) / T
         exact = integrate.quad(f, -1, 1, points=[0.005, 0.0], limit=400)[0]
