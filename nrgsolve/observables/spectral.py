@@ -53,9 +53,10 @@ spins are resolved (needed in a field).
 
 The discrete weights are binned on a fine logarithmic grid (weight and mean
 frequency per bin) and broadened (:func:`broaden`) with a log-Gaussian kernel
-(Bulla, Costi & Pruschke 2008) that crosses over smoothly to a plain Gaussian
-for poles near ω = 0, in the spirit of Weichselbaum & von Delft (2007);
-spectra of several twists are averaged on one common grid.
+(Bulla, Costi & Pruschke 2008) that crosses over smoothly to a linear (Gaussian)
+broadening near ω = 0, in the spirit of Weichselbaum & von Delft (2007), such
+that every pole keeps its weight; spectra of several twists are averaged on one
+common grid before the bias correction.
 
 The optional improved estimate uses the self-energy Σ = U F/G (Bulla, Hewson
 & Pruschke 1998), F the correlator of d_σ n_{d,−σ} with d†_σ.
