@@ -185,7 +185,8 @@ class DiscreteSpectrum:
         ``"z"`` and uses index 0 of the component axis); empty: all as ``components``.
     inverse_moment : ndarray, shape (n_corr, n_T, n_comp), optional
         Σ_p w_p/ω_p over the poles farther than the degeneracy tolerance from ω = 0 (units of 1/D):
-        for a commutator (bosonic) correlator its Kramers–Kronig static limit.
+        for a commutator (bosonic) correlator its Kramers–Kronig static limit; only computed for
+        those (zero for fermionic correlators).
     """
 
     temperatures: np.ndarray
@@ -323,6 +324,7 @@ class _Bins:
             self.weight = [[] for _ in range(int(np.prod(shape)))]
             return
         self.tiny = lowest * 1e-4
+        self._log_tiny = math.log10(self.tiny)
         self.per_decade = per_decade
         self.nb = int(math.ceil(math.log10(_HUGE / self.tiny) * per_decade))
         n = 2 * self.nb + 1
@@ -341,8 +343,8 @@ class _Bins:
         if self.raw:
             return omega
         a = np.abs(omega)
-        j = np.floor(np.log10(np.maximum(a, self.tiny) / self.tiny) * self.per_decade).astype(np.int64)
-        j = np.clip(j, 0, self.nb - 1)
+        j = ((np.log10(np.maximum(a, self.tiny)) - self._log_tiny) * self.per_decade).astype(np.int64)
+        np.minimum(j, self.nb - 1, out=j)              # j ≥ 0 since a ≥ tiny; truncation = floor here
         return np.where(a < self.tiny, self.nb, np.where(omega > 0, self.nb + 1 + j, self.nb - 1 - j))
 
     def add(self, index, keys, omega, weight):
@@ -538,13 +540,21 @@ class _Regions:
         self._done = {}
 
     def get(self, name):
+        """(bin keys, ω) of a region, both flat."""
         if name not in self._done:
             a, b = self.slices[name]
             om = (self.scale * (self.Es[a][:, None] - self.Er[b][None, :])).ravel()
-            apart = np.abs(om) > self.tol
-            inv_om = np.where(apart, 1.0 / np.where(apart, om, 1.0), 0.0)
-            self._done[name] = (self.bins.keys(om), om, inv_om)
+            self._done[name] = (self.bins.keys(om), om)
         return self._done[name]
+
+    def inverse(self, name):
+        """1/ω of a region (0 within the degeneracy tolerance of ω = 0), flat."""
+        key = ("inverse", name)
+        if key not in self._done:
+            om = self.get(name)[1]
+            apart = np.abs(om) > self.tol
+            self._done[key] = np.where(apart, 1.0 / np.where(apart, om, 1.0), 0.0)
+        return self._done[key]
 
 
 def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, per_decade, tol):
@@ -639,8 +649,9 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                                 continue
                             total[xi, t, ci] += float(w.sum())
                             lesser[xi, t, ci] += h_sum
-                            keys, om_flat, inv_om = regions.get(name)
-                            inverse[xi, t, ci] += float(w @ inv_om)
+                            keys, om_flat = regions.get(name)
+                            if pm < 0:
+                                inverse[xi, t, ci] += float(w @ regions.inverse(name))
                             parts_w.append(w)
                             parts_k.append(keys)
                             parts_o.append(om_flat)
