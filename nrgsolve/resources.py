@@ -71,9 +71,10 @@ BASELINE_BYTES = 300e6
 # (largest block / kept, sum of blocks / kept) by (symmetry, channels); see the module docstring.
 _BLOCKS = {("su2", 1): (0.21, 1.64), ("abelian", 1): (0.38, 4.06), ("su2", 2): (0.29, 6.35),
            ("abelian", 2): (0.38, 16.0),
-           # isospin, one channel: symmetric Anderson model, 2000 kept, Λ = 2 (largest block 195, sum 1210);
-           # two channels: not measured, the su2 fractions (an upper bound)
-           ("isospin", 1): (0.10, 0.61), ("isospin", 2): (0.29, 6.35)}
+           # isospin, one channel: symmetric Anderson model, 2000 kept, Λ = 2 (largest block 195, sum 1210),
+           # and the Kondo model, 1000 kept, Λ = 3 (0.127, 0.645); two channels: two-channel Kondo model,
+           # ρJ = 0.3, 1000 kept, Λ = 3, mean of the last five iterations (largest 137, sum 1602)
+           ("isospin", 1): (0.13, 0.65), ("isospin", 2): (0.14, 1.60)}
 
 
 @dataclass(frozen=True)
@@ -147,7 +148,9 @@ def estimate(spec, bath=None) -> ResourceEstimate:
     ----------
     spec : RunSpec
     bath : Bath, optional
-        Only its half-bandwidth is used (default: ``spec.bath.half_bandwidth``).
+        Its half-bandwidth (default: ``spec.bath.half_bandwidth``) and whether it is particle-hole
+        symmetric, which with ``run.symmetry = "auto"`` decides the symmetry (and so the block sizes);
+        without it "auto" is estimated with su2 (abelian in a field), an upper bound.
 
     Returns
     -------
@@ -166,8 +169,13 @@ def estimate(spec, bath=None) -> ResourceEstimate:
         kept = 1.2 * imp.declaration.impurity_states(imp) * kept_below_cutoff(r.energy_cutoff, d.Lambda, channels)
     else:
         kept = float(r.kept_states)
-    # "auto" is resolved only when the run starts: estimate with su2 (abelian in a field), an upper bound
-    name = r.symmetry if r.symmetry != "auto" else ("abelian" if imp.field != 0.0 else "su2")
+    name = r.symmetry
+    if name == "auto":
+        if bath is not None:                   # the symmetry the run will use
+            from .symmetry_choice import choose_symmetry
+            name = choose_symmetry(spec, bath)
+        else:                                  # without the bath: su2 (abelian in a field), an upper bound
+            name = "abelian" if imp.field != 0.0 else "su2"
     largest_frac, sum_frac = _BLOCKS[(name, channels)]
     runs = 2 if r.bath_reference == "nrg" else 1
     seconds, largest, peak_kept, peak_bytes, vectors = 0.0, 0.0, 0.0, 0.0, 0.0
