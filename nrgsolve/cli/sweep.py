@@ -15,6 +15,7 @@ def cmd_sweep(args) -> int:
     """Run every point of a sweep config; write point files and index.csv."""
     from ..config import load_config
     from ..resources import check_resources
+    from ..solve import bath_from_spec
     from ..sweep import WorkerLost, default_folder, remove_stale_parts, run_sweep, sweep_points
     from ..workers import Terminated
 
@@ -29,7 +30,7 @@ def cmd_sweep(args) -> int:
     jobs = 1 if args.scheduler else min(args.jobs, n)
     for p in points:          # refuse a point that cannot fit into memory before any point starts
         try:
-            check_resources(p.spec, workers=jobs)
+            check_resources(p.spec, bath_from_spec(p.spec), workers=jobs)
         except NrgInputError as exc:
             where = ", ".join(f"{k} = {v!r}" for k, v in p.values)
             raise NrgInputError(f"sweep point {p.number} ({where}): {exc}") from None
