@@ -192,10 +192,12 @@ def test_friedel_sum_rule_holds_with_defaults():
 
 @pytest.fixture(scope="module")
 def kondo_runs():
-    """Kondo model ρJ = 0.1, 0.15, 0.2 with defaults and 2 twists, down to T_K/10⁴."""
+    """Kondo model ρJ = 0.1, 0.15, 0.2 with the default scheme and thermodynamics, 2000 kept states and
+    4 twists (the default 1000 and 2 leave 0.8 % between the C_imp curves of ρJ = 0.1 and 0.15, 2000
+    and 4 twists 0.4 %), down to T_K/10⁴."""
     out = {}
     for rhoJ, low in ((0.1, 1e-10), (0.15, 1e-8), (0.2, 1e-7)):
-        out[rhoJ] = run(kondo(rhoJ, "twists = 2", lowest=low))
+        out[rhoJ] = run(kondo(rhoJ, "twists = 4", "kept_states = 2000", lowest=low))
     return out
 
 
@@ -212,10 +214,16 @@ def test_full_density_matrix_kondo_wilson_ratio_is_two(kondo_runs):
 @pytest.mark.slow
 def test_full_density_matrix_curves_collapse_on_t_over_tk(kondo_runs):
     """T·χ_imp, S_imp and C_imp of ρJ = 0.1, 0.15, 0.2 against T/T_K (Wilson's T_K) fall on one curve
-    (one-parameter scaling; Wilson 1975): spread within 0.5 % of 1/4 and ln 2 over T/T_K ∈ [0.01, 1],
-    and within 1.5 % up to T/T_K = 10, where ρJ = 0.2 (T = 0.03 D) is no longer in the scaling regime.
-    C_imp spreads by 1.0 % of its peak already below T_K (measured), so it gets 1.5 % there: the
-    issue's 0.5 % for C is not met with the default 1000 states."""
+    (one-parameter scaling; Wilson 1975) over T/T_K ∈ [0.01, 10]: T·χ_imp and S_imp within 0.5 % of ¼
+    and ln 2 for all three (measured 0.05 % and 0.37 %), C_imp within 0.5 % of its peak for ρJ = 0.1 and
+    0.15 (measured 0.41 %).  ρJ = 0.2 is not in the scaling regime to that accuracy: its own C_imp is
+    0.82–0.85 % (below T_K) and 1.4 % (up to 10 T_K, T = 0.03 D) of the peak away from the exact universal
+    curve (Bethe ansatz, nrgsolve.exact, an independent method), against 0.58–0.66 % for the other two,
+    the same with 4 or 8 twists (and a three-run spread of 1.41 % also with 4000 states): a correction to
+    scaling, not a numerical error.
+    So for ρJ = 0.2 the test asserts that it departs from the exact curve more than ρJ = 0.1 and 0.15 do
+    (corrections to scaling grow with the coupling; common practice, no source) and stays within 1.5 %."""
+    from nrgsolve.exact import kondo_thermodynamics
     x = np.geomspace(0.01, 10, 31)
     curves = {"T_chi": [], "entropy": [], "heat": []}
     for res in kondo_runs.values():
@@ -223,13 +231,16 @@ def test_full_density_matrix_curves_collapse_on_t_over_tk(kondo_runs):
         lt = np.log(res.thermo.temperature)
         for q in curves:
             curves[q].append(np.interp(np.log(x * tk), lt, getattr(res.thermo, q)))
-    scale = {"T_chi": 0.25, "entropy": LN2, "heat": max(np.max(c) for c in curves["heat"])}
-    low = x <= 1.0
-    tol_low = {"T_chi": 0.005, "entropy": 0.005, "heat": 0.015}
-    for q, cs in curves.items():
-        spread = (np.max(cs, axis=0) - np.min(cs, axis=0)) / scale[q]
-        assert np.max(spread[low]) < tol_low[q], (q, np.max(spread[low]), np.max(spread))
-        assert np.max(spread) < 0.015, (q, np.max(spread[low]), np.max(spread))
+    exact = kondo_thermodynamics(x)
+    peak = float(np.max(exact.heat_capacity))
+    for q, scale in (("T_chi", 0.25), ("entropy", LN2)):
+        spread = np.ptp(curves[q], axis=0) / scale
+        assert np.max(spread) < 0.005, (q, np.max(spread))
+    spread = np.ptp(curves["heat"][:2], axis=0) / peak
+    assert np.max(spread) < 0.005, np.max(spread)
+    off = [np.max(np.abs(c - exact.heat_capacity)) / peak for c in curves["heat"]]
+    assert off[2] > max(off[:2]), off
+    assert np.max(np.ptp(curves["heat"], axis=0)) / peak < 0.015
 
 
 @pytest.mark.slow
