@@ -29,6 +29,15 @@ def build_parser() -> Parser:
 
 
 def main(argv=None) -> int:
+    """Run one command; the exit code (0 success, 1 failure, 2 bad input, 130 Ctrl-C, 128 + signal)."""
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:         # also while the numerical libraries are still being imported
+        print("nrgsolve: error: interrupted; no output written", file=sys.stderr)
+        return 130
+
+
+def _main(argv) -> int:
     from ..workers import Terminated, WorkerDied, install_termination_handler
 
     install_termination_handler()      # SIGTERM/SIGHUP end the run like Ctrl-C: workers stopped, nothing written
