@@ -644,9 +644,7 @@ def _backward(shells, store, sym, ops, correlators, temps, logw, logz, lowest, p
                             g = (M1r * Fr).ravel() * fac if Fr is not None else 0.0
                             h = (M1r * Fs).ravel() * fac if Fs is not None else 0.0
                             h_sum = float(np.sum(h))
-                            w = g + pm * h
-                            if np.ndim(w) == 0:
-                                continue
+                            w = g + pm * h          # an array: the region is used for g or h
                             total[xi, t, ci] += float(w.sum())
                             lesser[xi, t, ci] += h_sum
                             keys, om_flat = regions.get(name)
