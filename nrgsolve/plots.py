@@ -299,6 +299,31 @@ def kondo_temperature(result: Result) -> float:
     return tk
 
 
+
+def _figure_and_axes(ax):
+    """(figure, axes): a new figure with one axes, or the given axes and its figure."""
+    if ax is None:
+        return new_figure()
+    return ax.figure, ax
+
+
+def _grid_and_legend(ax, legend: bool) -> None:
+    """The light grid of every plot, and a frameless legend when there is something to tell apart."""
+    ax.grid(alpha=0.25, which="both")
+    if legend:
+        ax.legend(fontsize=8, frameon=False)
+
+
+def _with_transport(results, dataset: str, config_key: str) -> list:
+    """``results`` as Results, each with ``/transport/<dataset>`` (else one line naming ``config_key``)."""
+    results = as_results(results)
+    for r in results:
+        if r.transport is None or dataset not in r.transport:
+            raise NrgInputError(f"{_name(r)}: holds no /transport/{dataset}; run with "
+                                f"{config_key} in the config")
+    return results
+
+
 def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | None = None,
                 labels: list[str] | None = None, ax=None, exact: bool = False):
     """Impurity thermodynamics of several runs on one logarithmic temperature axis.
@@ -357,10 +382,7 @@ def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | Non
                                 f"(/thermodynamics/{_quantity('thermo', name).dataset})")
     curves = _exact_curves(results, models, quantity, scales) if exact else []
     labels = run_labels(results) if labels is None else list(labels)
-    if ax is None:
-        fig, ax = new_figure()
-    else:
-        fig = ax.figure
+    fig, ax = _figure_and_axes(ax)
     for r, tk, lab in zip(results, scales, labels):
         T = np.asarray(r.thermo["temperature"], dtype=float)
         y = np.asarray(r.thermo[name], dtype=float)
@@ -373,9 +395,7 @@ def plot_thermo(results: list[Result], quantity: str = "T_chi", scale: str | Non
     ax.set_xscale("log")
     ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
     ax.set_ylabel(ylabel)
-    ax.grid(alpha=0.25, which="both")
-    if len(results) > 1 or labels[0] or curves:
-        ax.legend(fontsize=8, frameon=False)
+    _grid_and_legend(ax, len(results) > 1 or bool(labels[0]) or bool(curves))
     return fig
 
 
@@ -528,10 +548,7 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     A = np.asarray(sp["A_improved" if use_improved else name], dtype=float)
     comps = str(sp.attrs.get("components" if name == "A" else f"{name}_components", "")).split(", ")
     spins = A[None] if A.ndim == 2 else A            # (n_spin, n_T, n_ω)
-    if ax is None:
-        fig, ax = new_figure()
-    else:
-        fig = ax.figure
+    fig, ax = _figure_and_axes(ax)
     styles = ["-", "--"]
     for i, T in enumerate(temps):
         color = f"C{i % 10}"
@@ -553,8 +570,7 @@ def plot_spectral(result: Result, improved: bool | None = None, xscale: str = "s
     ax.set_xlabel(r"$\omega$  [$D$]")
     from .result import quantity as _quantity
     ax.set_ylabel(_quantity("spectral", name).label + (r"  (improved, $\Sigma = UF/G$)" if use_improved else ""))
-    ax.grid(alpha=0.25, which="both")
-    ax.legend(fontsize=8, frameon=False)
+    _grid_and_legend(ax, True)
     return fig
 
 
@@ -580,16 +596,9 @@ def plot_conductance(results: list[Result], labels: list[str] | None = None, ax=
     """
     if not results:
         raise NrgInputError("results: give at least one result")
-    results = as_results(results)
-    for r in results:
-        if r.transport is None or "conductance" not in r.transport:
-            raise NrgInputError(f"{_name(r)}: holds no /transport/conductance; run with "
-                                f"spectral.conductance_temperatures in the config")
+    results = _with_transport(results, "conductance", "spectral.conductance_temperatures")
     labels = run_labels(results) if labels is None else list(labels)
-    if ax is None:
-        fig, ax = new_figure()
-    else:
-        fig = ax.figure
+    fig, ax = _figure_and_axes(ax)
     for r, lab in zip(results, labels):
         T = np.asarray(r.transport["temperature"], dtype=float)
         g = np.asarray(r.transport["conductance"], dtype=float)
@@ -598,9 +607,7 @@ def plot_conductance(results: list[Result], labels: list[str] | None = None, ax=
     ax.set_xlabel(r"$T$  [$D$]")
     ax.set_ylabel(r"$G/(2e^2/h)$")
     ax.set_ylim(bottom=0)
-    ax.grid(alpha=0.25, which="both")
-    if len(results) > 1 or labels[0]:
-        ax.legend(fontsize=8, frameon=False)
+    _grid_and_legend(ax, len(results) > 1 or bool(labels[0]))
     return fig
 
 
@@ -642,18 +649,12 @@ def plot_transport(results: list[Result], quantity: str = "resistivity", scale: 
         raise NrgInputError(f"quantity: got {quantity!r}; allowed: {', '.join(TRANSPORT_QUANTITIES)}")
     if scale not in (None, "kondo"):
         raise NrgInputError(f"scale: got {scale!r}; allowed: kondo (or none)")
-    results = as_results(results)
+    results = _with_transport(results, quantity, "spectral.transport_temperatures")
     for r in results:
-        if r.transport is None or quantity not in r.transport:
-            raise NrgInputError(f"{_name(r)}: holds no /transport/{quantity}; run with "
-                                f"spectral.transport_temperatures in the config")
         if scale == "kondo" and r.kondo_temperature is None:
             raise NrgInputError(f"{_name(r)}: has no Kondo temperature; plot against T (no scale)")
     labels = run_labels(results) if labels is None else list(labels)
-    if ax is None:
-        fig, ax = new_figure()
-    else:
-        fig = ax.figure
+    fig, ax = _figure_and_axes(ax)
     from .result import quantity as _quantity
     for r, lab in zip(results, labels):
         T = np.asarray(r.transport["alloy_temperature"], dtype=float)
@@ -666,7 +667,5 @@ def plot_transport(results: list[Result], quantity: str = "resistivity", scale: 
     ax.set_xlabel(r"$T/T_K$" if scale == "kondo" else r"$T$  [$D$]")
     label = _quantity("transport", quantity).label
     ax.set_ylabel(label + ("  (over its lowest-$T$ value)" if normalized else ""))
-    ax.grid(alpha=0.25, which="both")
-    if len(results) > 1 or labels[0]:
-        ax.legend(fontsize=8, frameon=False)
+    _grid_and_legend(ax, len(results) > 1 or bool(labels[0]))
     return fig

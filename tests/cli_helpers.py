@@ -20,13 +20,17 @@ Lambda = 3.0
 twists = 1
 
 [run]
-kept_states = 80
-lowest_temperature = 1e-4
+kept_states = {kept_states}
+lowest_temperature = {lowest_temperature}
 """
 
 
-def tiny_kondo(exchange: float = 0.2) -> str:
-    return TINY_KONDO.format(exchange=exchange)
+def tiny_kondo(exchange: float = 0.2, kept_states: int = 80, lowest_temperature: str = "1e-4",
+               run_lines: str = "") -> str:
+    """The small Kondo config; ``run_lines`` are added to its [run] table (the last one).  The lowest
+    temperature is text, as written in the file (tests edit it by replacing "1e-4")."""
+    return TINY_KONDO.format(exchange=exchange, kept_states=kept_states,
+                             lowest_temperature=lowest_temperature) + run_lines
 
 
 def cli_env(extra_path: str | None = None) -> dict:

@@ -16,6 +16,18 @@ def omega(N, Lam, D=1.0):
     return D * 0.5 * (1 + 1 / Lam) * Lam ** (-(N - 1) / 2)
 
 
+def merged(om, w, tol=1e-8):
+    """Discrete spectral poles with the weights of coinciding poles (within ``tol``) summed; empty groups
+    dropped."""
+    o = np.argsort(om, kind="stable")
+    om, w = np.asarray(om)[o], np.asarray(w)[o]
+    group = np.concatenate([[0], np.cumsum(np.diff(om) > tol)])
+    W = np.bincount(group, weights=w)
+    O = np.bincount(group, weights=om) / np.bincount(group)
+    keep = np.abs(W) > 1e-12
+    return O[keep], W[keep]
+
+
 def many_body_levels(single_particle, n_lowest=None, spinful=True):
     """Exact many-body excitation energies of free fermions from single-particle energies.
 

@@ -16,22 +16,12 @@ from nrgsolve.user_cache import default_cache_dir
 import subprocess
 import sys
 
-from cli_helpers import cli_env
+from cli_helpers import cli_env, tiny_kondo
 
-BASE = """
-[impurity]
-model = "kondo"
-exchange = {exchange}
-
-[discretization]
-Lambda = 3.0
-twists = 1
-
-[run]
-kept_states = 120
-lowest_temperature = 1e-5
-thermodynamics = "{thermo}"
-"""
+def base(exchange: float, thermo: str) -> str:
+    """A small Kondo config with the given thermodynamics method (cheap enough for several runs)."""
+    return tiny_kondo(exchange, kept_states=120, lowest_temperature="1e-5",
+                      run_lines=f'thermodynamics = "{thermo}"\n')
 
 
 @pytest.fixture
@@ -45,7 +35,7 @@ def cache_home(tmp_path, monkeypatch):
 
 
 def _spec(exchange, thermo="conventional", cache=True):
-    text = BASE.format(exchange=exchange, thermo=thermo) + ("" if cache else "bath_cache = false\n")
+    text = base(exchange, thermo) + ("" if cache else "bath_cache = false\n")
     return parse_config(text, "point.toml")
 
 
@@ -61,7 +51,7 @@ def _same(a, b):
 def test_a_sweep_over_the_coupling_computes_the_bath_run_once(cache_home, tmp_path):
     """Four values of ρJ, conventional thermodynamics: the bath run depends only on the chain and the
     truncation, so it is computed for the first point and reused by the three others."""
-    text = BASE.format(exchange=0.1, thermo="conventional") + \
+    text = base(0.1, "conventional") + \
         '\n[sweep]\n"impurity.exchange" = [0.1, 0.15, 0.2, 0.25]\n'
     run_sweep(parse_config(text, "grid.toml"), tmp_path / "out", jobs=1)
     assert bath_cache.STATS.computed == 1
@@ -99,7 +89,7 @@ def test_a_corrupted_cache_entry_is_recomputed_not_trusted(cache_home):
 
 def test_no_cache_flag_neither_reads_nor_writes_the_cache(tmp_path):
     """`nrgsolve run --no-cache` leaves the cache folder empty; without it the bath run is stored."""
-    (tmp_path / "k.toml").write_text(BASE.format(exchange=0.2, thermo="conventional"))
+    (tmp_path / "k.toml").write_text(base(0.2, "conventional"))
     env = cli_env()
     env.pop("NRGSOLVE_CACHE_DIR", None)
     env["XDG_CACHE_HOME"] = str(tmp_path / "xdg")

@@ -17,22 +17,11 @@ from nrgsolve.engine.iterate import Step
 from nrgsolve.models import kondo_block, anderson_block
 from nrgsolve.observables.dynamics import backward_operators
 
-from conftest import wilson_hopping, omega
+from conftest import wilson_hopping, omega, merged
 
 
 # ---------------------------------------------------------------------------------------------
 # exact checks on short chains
-
-def merged(om, w, tol=1e-8):
-    """Sum the weights of coinciding poles; drop empty groups."""
-    o = np.argsort(om, kind="stable")
-    om, w = np.asarray(om)[o], np.asarray(w)[o]
-    group = np.concatenate([[0], np.cumsum(np.diff(om) > tol)])
-    W = np.bincount(group, weights=w)
-    O = np.bincount(group, weights=om) / np.bincount(group)
-    keep = np.abs(W) > 1e-12
-    return O[keep], W[keep]
-
 
 def dense_kondo(J, K, hop, T, spin):
     """Lehmann weights of the composite operator O_σ = [f_0σ, H_imp] (anticommutator) and of the

@@ -24,7 +24,7 @@ from nrgsolve.observables.spectral import (spectral_run, impurity_operators, bro
 from nrgsolve.observables.transport import linear_conductance
 from nrgsolve.solve import solve
 
-from conftest import wilson_hopping, omega
+from conftest import wilson_hopping, omega, merged
 
 
 # ---------------------------------------------------------------------------------------------
@@ -69,17 +69,6 @@ def dense_weights(eps_d, U, V, field, onsite, hop, T, spin):
     both = rho[None, :] + rho[:, None]
     om = E[:, None] - E[None, :]
     return om.ravel(), (F * F * both).ravel(), (Fn * F * both).ravel()
-
-
-def merged(om, w, tol=1e-8):
-    """Sum the weights of coinciding poles; drop empty groups."""
-    o = np.argsort(om, kind="stable")
-    om, w = np.asarray(om)[o], np.asarray(w)[o]
-    group = np.concatenate([[0], np.cumsum(np.diff(om) > tol)])
-    W = np.bincount(group, weights=w)
-    O = np.bincount(group, weights=om) / np.bincount(group)
-    keep = np.abs(W) > 1e-12
-    return O[keep], W[keep]
 
 
 def log_integral(om, A):
